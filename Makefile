@@ -1,0 +1,40 @@
+# Two commands do all set-up: `make demo` and `make test`. Both create .venv when it is
+# missing and reinstall only when pyproject.toml changed (the stamp file records that).
+PYTHON ?= python3
+VENV   := .venv
+PY     := $(VENV)/bin/python
+STAMP  := $(VENV)/.installed
+SEED   ?= 0
+
+.PHONY: demo test test-all bench samples clean
+
+$(PY):
+	$(PYTHON) -m venv $(VENV)
+	$(PY) -m pip install --quiet --upgrade pip
+
+$(STAMP): pyproject.toml | $(PY)
+	$(PY) -m pip install --quiet -e '.[files,test]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(PY) -m advisor assess sample_logs/moulding_warpage.csv --objective warpage_mm \
+	    --campaign lot --order run --out reports --seed $(SEED) --quick
+	$(PY) -m advisor assess sample_logs/fermentation_yield.csv --objective yield_g_per_l --maximize \
+	    --campaign batch_series --order run --status outcome --success ok --out reports --seed $(SEED) --quick
+	$(PY) -m advisor assess sample_logs/forecast_tuning.csv --objective val_mape \
+	    --campaign study --order trial --out reports --seed $(SEED) --quick
+
+test: $(STAMP)
+	$(PY) -m pytest -q -m "not slow"
+
+test-all: $(STAMP)
+	$(PY) -m pytest -q
+
+bench: $(STAMP)
+	$(PY) benchmarks/run.py
+
+samples: $(STAMP)
+	$(PY) scripts/make_sample_logs.py
+
+clean:
+	rm -rf $(VENV) build *.egg-info .pytest_cache

@@ -1,0 +1,127 @@
+"""Candidate surrogate models behind one protocol, and the registry that names them.
+
+Built-in models are registered here by name and import path and imported only when
+made, so that a model whose module is missing or broken never stops the others.
+A user's own model is named ``module:Class`` (or ``path/to/file.py:Class``).
+"""
+
+from __future__ import annotations
+
+import importlib
+import importlib.util
+import inspect
+import sys
+from pathlib import Path
+
+from ..errors import UsageError
+from .base import ScaledSurrogate, Surrogate, check_predictions
+
+__all__ = ["surrogate_names", "make_surrogate", "describe_surrogate", "Surrogate",
+           "ScaledSurrogate", "check_predictions", "BUILTIN"]
+
+#: name -> (import path, one-line description).  Order is the display order.
+BUILTIN: dict[str, tuple[str, str]] = {
+    "gp": ("advisor.surrogates.gp:MaternGP",
+           "Gaussian process, Matérn-5/2 ARD kernel, type-II ML (Rasmussen & Williams 2006)"),
+    "forest": ("advisor.surrogates.forest:RandomForestSurrogate",
+               "random forest, variance by the law of total variance (Hutter et al. 2014)"),
+    "dngo": ("advisor.surrogates.dngo:DNGO",
+             "network + Bayesian linear regression on its last layer (Snoek et al. 2015)"),
+    "bnn": ("advisor.surrogates.bnn:SGHMCBayesianNet",
+            "Bayesian neural network sampled by adaptive SGHMC (Springenberg et al. 2016)"),
+    "ensemble": ("advisor.surrogates.ensemble:DeepEnsemble",
+                 "deep ensemble of Gaussian-head networks (Lakshminarayanan et al. 2017)"),
+    "neural_process": ("advisor.surrogates.neural_process:NeuralProcess",
+                       "neural process, deterministic + latent path (Garnelo et al. 2018)"),
+    "baseline": ("advisor.surrogates.baseline:MeanBaseline",
+                 "training mean and standard deviation everywhere (knowing nothing)"),
+}
+
+
+def _module_available(spec: str) -> bool:
+    module = spec.split(":")[0]
+    try:
+        return importlib.util.find_spec(module) is not None
+    except ModuleNotFoundError:
+        return False
+
+
+def surrogate_names() -> list[str]:
+    """Names of the built-in candidates whose modules are installed, in display order."""
+    return [name for name, (spec, _) in BUILTIN.items() if _module_available(spec)]
+
+
+def describe_surrogate(name: str) -> str:
+    if name in BUILTIN:
+        return BUILTIN[name][1]
+    return f"user model {name}"
+
+
+def _load_class(spec: str):
+    """Import ``module:Class`` or ``file.py:Class``; raise UsageError with a fix."""
+    if spec.count(":") != 1 or not all(spec.split(":")):
+        raise UsageError(f"surrogate '{spec}' is not of the form module:Class",
+                         fix="write e.g. mypackage.models:MyModel or ./my_model.py:MyModel")
+    module_name, class_name = spec.rsplit(":", 1)
+    try:
+        if module_name.endswith(".py"):
+            file = Path(module_name)
+            if not file.is_file():
+                raise UsageError(f"surrogate '{spec}': no file {file}",
+                                 fix="check the path to the .py file")
+            mod_id = f"_advisor_user_{abs(hash(str(file.resolve())))}"
+            loader_spec = importlib.util.spec_from_file_location(mod_id, file)
+            module = importlib.util.module_from_spec(loader_spec)
+            sys.modules[mod_id] = module
+            loader_spec.loader.exec_module(module)
+        else:
+            module = importlib.import_module(module_name)
+    except UsageError:
+        raise
+    except Exception as exc:  # any import failure of the user's module is bad input
+        raise UsageError(f"surrogate '{spec}': cannot import {module_name} "
+                         f"({type(exc).__name__}: {exc})",
+                         fix="check the module name and that it is on PYTHONPATH") from None
+    cls = getattr(module, class_name, None)
+    if cls is None:
+        raise UsageError(f"surrogate '{spec}': module {module_name} has no {class_name}",
+                         fix="check the class name")
+    if not (callable(getattr(cls, "fit", None)) and callable(getattr(cls, "predict", None))):
+        raise UsageError(f"surrogate '{spec}': {class_name} lacks fit(X, y) and predict(X)",
+                         fix="give the class fit(X, y) -> self and predict(X) -> (mean, std)")
+    return cls
+
+
+def make_surrogate(name: str, seed: int = 0, quick: bool = False, **options):
+    """An unfitted surrogate.
+
+    Parameters
+    ----------
+    name : str
+        A name from :func:`surrogate_names` or ``module:Class`` for a user's model.
+    seed : int
+        Seeds every random choice inside the model.
+    quick : bool
+        Use the quick budget (fewer restarts, epochs, samples).
+    **options
+        Passed to the constructor.
+
+    Constructor arguments ``seed`` and ``quick`` are passed only when the class
+    accepts them, so a user's model needs neither.
+    """
+    spec = BUILTIN[name][0] if name in BUILTIN else name
+    if name not in BUILTIN and ":" not in name:
+        raise UsageError(f"unknown surrogate '{name}'; known: " + ", ".join(surrogate_names()),
+                         fix="pick a listed name or give module:Class")
+    cls = _load_class(spec)
+    kwargs = dict(options)
+    try:
+        accepted = inspect.signature(cls).parameters
+    except (TypeError, ValueError):
+        accepted = {}
+    has_var_kw = any(p.kind is p.VAR_KEYWORD for p in accepted.values())
+    if "seed" in accepted or has_var_kw:
+        kwargs.setdefault("seed", seed)
+    if "quick" in accepted or has_var_kw:
+        kwargs.setdefault("quick", quick)
+    return cls(**kwargs)

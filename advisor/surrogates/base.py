@@ -1,0 +1,120 @@
+"""The surrogate protocol and the input/output scaling every model shares.
+
+A surrogate is any object with
+
+* ``fit(X, y) -> self`` on a float matrix ``X`` (n × d, raw encoded units, see
+  :mod:`advisor.space`) and a float vector ``y`` (n,), and
+* ``predict(X) -> (mean, std)``: the predictive mean and the predictive standard
+  deviation of a *new observation* (observation noise included), both in ``y``'s units.
+
+Optional members a model may offer, which the tool uses when present:
+
+* ``input_encoding``: ``"onehot"`` (default) or ``"ordinal"`` for categorical settings;
+* ``noise_std_``: the fitted observation-noise standard deviation, in ``y``'s units;
+* ``sample_y(X, n_samples, rng) -> (n_samples, len(X))``: *joint* draws of the latent
+  function at ``X`` (for Thompson sampling); without it, draws are independent per point;
+* ``uses_groups = True`` with ``fit(X, y, groups=None)`` / ``predict(X, groups=None)``:
+  the model is told which campaign each row belongs to;
+* ``info_``: a dict of plain facts for the report (e.g. an approximation used).
+
+:class:`ScaledSurrogate` standardizes inputs and outputs once, so subclasses work on
+unit-scale data and never repeat that code.
+"""
+
+from __future__ import annotations
+
+from typing import Protocol, runtime_checkable
+
+import numpy as np
+
+__all__ = ["Surrogate", "ScaledSurrogate", "check_fit_inputs", "check_predictions"]
+
+
+@runtime_checkable
+class Surrogate(Protocol):
+    def fit(self, X: np.ndarray, y: np.ndarray) -> "Surrogate": ...
+
+    def predict(self, X: np.ndarray) -> tuple[np.ndarray, np.ndarray]: ...
+
+
+def check_fit_inputs(X, y) -> tuple[np.ndarray, np.ndarray]:
+    X = np.asarray(X, dtype=float)
+    y = np.asarray(y, dtype=float).ravel()
+    if X.ndim != 2 or X.shape[0] != y.shape[0]:
+        raise ValueError(f"X must be (n, d) and y (n,), got {X.shape} and {y.shape}")
+    if X.shape[0] < 2:
+        raise ValueError("at least two training points are needed")
+    if not (np.all(np.isfinite(X)) and np.all(np.isfinite(y))):
+        raise ValueError("X and y must be finite")
+    return X, y
+
+
+def check_predictions(mean, std, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Validate a model's output; raise ValueError on shape or non-finite values."""
+    mean = np.asarray(mean, dtype=float).ravel()
+    std = np.asarray(std, dtype=float).ravel()
+    if mean.shape != (n,) or std.shape != (n,):
+        raise ValueError(f"predict returned shapes {mean.shape}, {std.shape}; expected ({n},)")
+    if not (np.all(np.isfinite(mean)) and np.all(np.isfinite(std))):
+        raise ValueError("predict returned non-finite values")
+    if np.any(std <= 0):
+        raise ValueError("predict returned a non-positive standard deviation")
+    return mean, std
+
+
+class ScaledSurrogate:
+    """Base class: standardize X columns and y, then call ``_fit`` / ``_predict``.
+
+    Constant input columns are left unscaled (unit divisor) rather than divided by zero.
+    Subclasses implement ``_fit(Xs, ys)`` and ``_predict(Xs) -> (mean_s, std_s)`` on
+    standardized data; std_s must include observation noise.  ``sample_y`` is offered
+    when the subclass implements ``_sample_latent(Xs, n, rng)``.
+    """
+
+    input_encoding = "onehot"
+
+    def __init__(self, seed: int = 0, quick: bool = False):
+        self.seed = seed
+        self.quick = quick
+
+    # -- scaling ------------------------------------------------------------------
+    def _scale_fit(self, X, y):
+        X, y = check_fit_inputs(X, y)
+        self.x_mean_ = X.mean(axis=0)
+        sd = X.std(axis=0)
+        self.x_scale_ = np.where(sd > 1e-12, sd, 1.0)
+        self.y_mean_ = float(y.mean())
+        ysd = float(y.std())
+        self.y_scale_ = ysd if ysd > 1e-12 else 1.0
+        return (X - self.x_mean_) / self.x_scale_, (y - self.y_mean_) / self.y_scale_
+
+    def _scale_x(self, X):
+        X = np.asarray(X, dtype=float)
+        if X.ndim != 2:
+            raise ValueError(f"X must be 2-D, got shape {X.shape}")
+        return (X - self.x_mean_) / self.x_scale_
+
+    # -- protocol -----------------------------------------------------------------
+    def fit(self, X, y):
+        Xs, ys = self._scale_fit(X, y)
+        self._fit(Xs, ys)
+        return self
+
+    def predict(self, X):
+        Xs = self._scale_x(X)
+        mean_s, std_s = self._predict(Xs)
+        mean = self.y_mean_ + self.y_scale_ * np.asarray(mean_s, dtype=float)
+        std = self.y_scale_ * np.asarray(std_s, dtype=float)
+        return mean, std
+
+    @property
+    def noise_std_(self):
+        s = getattr(self, "_noise_std_s", None)
+        return None if s is None else float(s) * self.y_scale_
+
+    # -- hooks --------------------------------------------------------------------
+    def _fit(self, Xs, ys):  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def _predict(self, Xs):  # pragma: no cover - abstract
+        raise NotImplementedError
