@@ -1,0 +1,230 @@
+"""The command line: flags → API calls → terminal table, files, exit codes.
+
+Exit status 0 on success; 2 for bad input or usage (one line on stderr starting
+``error:``); 1 for an internal failure (one line on stderr, details in
+``DIR/advisor-error.log``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shlex
+import sys
+import traceback
+from contextlib import ExitStack
+from pathlib import Path
+
+from .errors import AdvisorError, InputError, UsageError
+
+__all__ = ["main", "build_parser"]
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, but a usage error is our one-line UsageError, not a usage dump."""
+
+    def error(self, message):
+        raise UsageError(message, fix=f"see '{self.prog} --help'")
+
+
+def _csv_list(text: str) -> list[str]:
+    return [s.strip() for s in text.split(",") if s.strip()]
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="advisor", description="Choose a surrogate model and an acquisition "
+                "setting for the next Bayesian-optimization campaign from past trial logs.")
+    sub = p.add_subparsers(dest="command", parser_class=_Parser)
+    a = sub.add_parser("assess", help="cross-validate surrogates on a trial log and recommend one")
+    a.add_argument("log", help="trial log: CSV (also .parquet, .xlsx)")
+    a.add_argument("--objective", required=True, help="column holding the measured objective")
+    a.add_argument("--maximize", action="store_true", help="larger objective is better")
+    a.add_argument("--campaign", help="column naming the campaign of each trial")
+    a.add_argument("--order", help="column with the trial order within its campaign")
+    a.add_argument("--params", type=_csv_list, help="parameter columns, comma-separated "
+                   "(default: all other columns)")
+    a.add_argument("--status", help="column with the run status")
+    a.add_argument("--success", type=_csv_list, help="status values meaning success, "
+                   "comma-separated (default: ok,success,done,completed)")
+    a.add_argument("--space", help="TOML file defining the parameter space")
+    a.add_argument("--out", default="reports", help="output folder (default: reports)")
+    a.add_argument("--seed", type=int, default=0, help="run seed (default 0)")
+    a.add_argument("--quick", action="store_true", help="quick budget")
+    a.add_argument("--surrogates", type=_csv_list, help="built-in surrogates to compare, "
+                   "comma-separated (default: all); see 'advisor surrogates'")
+    a.add_argument("--surrogate", action="append", default=[], metavar="MODULE:CLASS",
+                   help="add your own model (any class with fit/predict); repeatable")
+    a.add_argument("--validation", default="auto",
+                   choices=["auto", "kfold", "forward", "campaign"],
+                   help="validation scheme (default auto: forward chaining with an order "
+                        "column, else leave-one-campaign-out with 3+ campaigns, else k-fold)")
+    a.add_argument("--acquisitions", help="acquisition settings to backtest, e.g. "
+                   "'ei:xi=0,0.01;ucb:beta=1,4;thompson'")
+    a.add_argument("--budget", type=int, help="trials in the next campaign (default from logs)")
+    a.add_argument("--batch", type=int, default=1, help="trials per batch in the next campaign")
+    a.add_argument("--propose", type=int, default=0, metavar="K",
+                   help="propose K settings for the next campaign's first batch")
+    a.add_argument("--max-fit-seconds", type=float,
+                   help="flag surrogates whose projected time per iteration exceeds this")
+    a.add_argument("--jobs", type=int, help="local worker processes (default: all cores)")
+    a.add_argument("--scheduler", help="Dask scheduler address, e.g. tcp://10.0.0.5:8786")
+    a.add_argument("--no-backtest", action="store_true", help="skip the acquisition backtest")
+    a.add_argument("--no-pdf", action="store_true", help="write JSON and CSV only")
+    a.add_argument("--quiet", action="store_true", help="no progress bar, no table")
+    sub.add_parser("surrogates", help="list the built-in surrogates")
+    return p
+
+
+def _check_out_dir(out: Path) -> Path:
+    if out.exists() and not out.is_dir():
+        raise InputError("output path is a file, not a folder", path=out,
+                         fix="pass a folder with --out")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create output folder ({exc.strerror})", path=out,
+                         fix="pass a writable folder with --out") from None
+    if not os.access(out, os.W_OK | os.X_OK):
+        raise InputError("output folder is not writable", path=out,
+                         fix="pass a writable folder with --out")
+    return out
+
+
+def _validate_numbers(args):
+    for flag, value, low in (("--budget", args.budget, 1), ("--batch", args.batch, 1),
+                             ("--propose", args.propose, 0), ("--jobs", args.jobs, 1)):
+        if value is not None and value < low:
+            raise UsageError(f"{flag} must be at least {low}, got {value}",
+                             fix=f"pass {flag} {max(low, 1)} or more")
+    if args.max_fit_seconds is not None and not args.max_fit_seconds > 0:
+        raise UsageError("--max-fit-seconds must be positive", fix="pass e.g. --max-fit-seconds 30")
+
+
+def _progress(quiet: bool):
+    """A rich progress bar on stderr, or None when quiet or stderr is not a terminal."""
+    if quiet or not sys.stderr.isatty():
+        return None, None
+    from rich.console import Console
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, \
+        TimeElapsedColumn
+
+    bar = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                   TimeElapsedColumn(), console=Console(stderr=True), transient=True)
+    tasks = {}
+
+    def tick(done, total, label):
+        if label not in tasks:
+            tasks[label] = bar.add_task(label or "working", total=total)
+        bar.update(tasks[label], completed=done, total=total)
+
+    return bar, tick
+
+
+def _assess(args) -> int:
+    from . import load_trials
+    from .assessment import assess
+    from .execution import default_jobs
+    from .report.export import atomic_path, write_json, write_scores_csv
+
+    _validate_numbers(args)
+    out = _check_out_dir(Path(args.out))
+    names = list(args.surrogates or [])
+    if args.surrogate:
+        from .surrogates import surrogate_names
+        names = (names or surrogate_names()) + list(args.surrogate)
+    load_kwargs = dict(objective=args.objective,
+                       direction="maximize" if args.maximize else "minimize",
+                       params=args.params, campaign=args.campaign, order=args.order,
+                       status=args.status)
+    if args.success:
+        load_kwargs["success"] = args.success
+    if args.space:
+        load_kwargs["space"] = args.space
+    trials = load_trials(args.log, **load_kwargs)
+    bar, tick = _progress(args.quiet)
+    command = "advisor " + " ".join(shlex.quote(x) for x in sys.argv[1:]) \
+        if Path(sys.argv[0]).name in ("advisor", "__main__.py") else None
+    try:
+        if bar is not None:
+            bar.start()
+        a = assess(trials, seed=args.seed, quick=args.quick, surrogates=names or None,
+                   validation=args.validation, jobs=args.jobs or default_jobs(),
+                   scheduler=args.scheduler, acquisitions=args.acquisitions,
+                   budget=args.budget, batch=args.batch, propose=args.propose,
+                   max_fit_seconds=args.max_fit_seconds, backtest=not args.no_backtest,
+                   progress=tick, command=command)
+    finally:
+        if bar is not None:
+            bar.stop()
+    stem = Path(args.log).stem
+    payload = a.to_dict()
+    # Write every output to a temporary file first and rename them all only when all
+    # are complete, so a failure leaves no half-written or mismatched set of files.
+    with ExitStack() as stack:
+        json_tmp = stack.enter_context(atomic_path(out / f"{stem}.json"))
+        csv_tmp = stack.enter_context(atomic_path(out / f"{stem}.csv"))
+        write_json(payload, json_tmp)
+        write_scores_csv(a, csv_tmp)
+        written = [out / f"{stem}.json", out / f"{stem}.csv"]
+        if a.proposals is not None and len(a.proposals):
+            prop_tmp = stack.enter_context(atomic_path(out / f"{stem}-proposals.csv"))
+            a.proposals.to_csv(prop_tmp, index=False)
+            written.append(out / f"{stem}-proposals.csv")
+        if not args.no_pdf:
+            from .report.pdf import write_pdf
+            pdf_tmp = stack.enter_context(atomic_path(out / f"{stem}.pdf"))
+            write_pdf(a, pdf_tmp)
+            written.append(out / f"{stem}.pdf")
+    if not args.quiet:
+        from .report.terminal import print_assessment
+        print_assessment(a, payload, written)
+    return 0
+
+
+def _list_surrogates() -> int:
+    from .surrogates import describe_surrogate, surrogate_names
+    for n in surrogate_names():
+        print(f"{n:16s} {describe_surrogate(n)}")
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the CLI; return the exit status (0 ok, 2 bad input/usage, 1 internal)."""
+    argv = sys.argv[1:] if argv is None else list(argv)
+    out_dir = Path("reports")
+    try:
+        parser = build_parser()
+        if not argv or argv[0] in ("-h", "--help"):
+            parser.print_help()
+            return 0 if argv else 2
+        args = parser.parse_args(argv)
+        if args.command == "surrogates":
+            return _list_surrogates()
+        out_dir = Path(args.out)
+        return _assess(args)
+    except AdvisorError as exc:
+        if exc.exit_code == 2:
+            print(f"error: {exc.one_line()}", file=sys.stderr)
+            return 2
+        return _internal(exc, out_dir)
+    except SystemExit as exc:  # argparse's --help
+        return int(exc.code or 0)
+    except KeyboardInterrupt:
+        print("error: interrupted; no output was written", file=sys.stderr)
+        return 1
+    except Exception as exc:  # last resort: one line, details to a log file
+        return _internal(exc, out_dir)
+
+
+def _internal(exc: BaseException, out_dir: Path) -> int:
+    where = ""
+    try:
+        if out_dir.is_dir() and os.access(out_dir, os.W_OK):
+            log = out_dir / "advisor-error.log"
+            log.write_text(traceback.format_exc(), encoding="utf-8")
+            where = f"; details in {log}"
+    except OSError:
+        pass
+    msg = " ".join(f"{type(exc).__name__}: {exc}".split())[:300]
+    print(f"error: internal failure ({msg}){where}; please report it", file=sys.stderr)
+    return 1

@@ -1,0 +1,70 @@
+"""The ranked table and the recommendation, printed to the terminal with rich."""
+
+from __future__ import annotations
+
+from rich.console import Console
+from rich.markup import escape
+from rich.table import Table
+
+from .pdf import CAUTION
+
+__all__ = ["print_assessment"]
+
+
+def _f(v, fmt="{:.3g}"):
+    return "–" if v is None else fmt.format(v)
+
+
+def print_assessment(a, payload: dict, written, console: Console | None = None) -> None:
+    con = console or Console(width=None if Console().is_terminal else 132, highlight=False)
+    d = payload
+    inp = d["input"]
+    con.print(f"[bold]{inp['path']}[/]  sha256 {inp['sha256'][:12]}  "
+              f"{inp['rows_used']} trials used, {inp['rows_failed']} failed, "
+              f"{len(d['campaigns'])} campaign(s); objective {inp['objective']} "
+              f"({inp['direction']})")
+    for note in d.get("notes", []):
+        con.print(f"  note: {escape(note)}")
+    v = d["validation"]
+    con.print(f"validation: {v['scheme']} ({v['reason']}); {v['n_folds']} folds, "
+              f"{v['tested_trials']} held-out trials")
+    t = Table(title="Surrogates, best first", header_style="bold")
+    for col in ("#", "surrogate", "CRPS", "95% CI", "NLL", "cov 90", "cal err",
+                "Spearman", "P(best)", "fit s", "note"):
+        t.add_column(col, justify="left" if col in ("surrogate", "note") else "right")
+    for r in d["ranking"]:
+        m = r["metrics"]
+        ci = r.get("intervals", {}).get("crps")
+        comp = r.get("comparison") or {}
+        note = ""
+        if r["status"] != "ok":
+            note = "failed"
+        elif comp.get("tied_with_leader") and r["rank"] != 1:
+            note = "tied"
+        if r.get("variance_scale", 1.0) not in (None, 1.0):
+            note = (note + " " if note else "") + f"std×{r['variance_scale']:.2f}"
+        guards = r.get("guards") or {}
+        if guards and not (guards.get("coverage") and guards.get("order")):
+            note = (note + " " if note else "") + "guard"
+        t.add_row(str(r["rank"]), r["surrogate"], _f(m.get("crps"), "{:.4g}"),
+                  "–" if not ci or ci[0] is None else f"{ci[0]:.3g}–{ci[1]:.3g}",
+                  _f(m.get("nll")), _f(m.get("coverage_90"), "{:.2f}"),
+                  _f(m.get("calibration_error"), "{:.3f}"), _f(m.get("spearman"), "{:.2f}"),
+                  _f(comp.get("p_best"), "{:.2f}"), _f(m.get("fit_seconds"), "{:.2f}"), note)
+    con.print(t)
+    rec = d["recommendation"]
+    acq = rec["acquisition"]
+    params = ", ".join(f"{k}={v}" for k, v in acq.get("params", {}).items())
+    scale = rec.get("variance_scale") or 1.0
+    scale_txt = f", standard deviation scaled by {scale:.2f}" if abs(scale - 1) > 1e-9 else ""
+    con.print(f"[bold]Recommendation:[/] {rec['surrogate']}{scale_txt}, acquisition "
+              f"{acq['name']}({params}) ({rec['acquisition_source']}); "
+              f"confidence [bold]{rec['confidence']}[/].")
+    for reason in rec.get("reasons", []):
+        con.print(f"  - {escape(reason)}")
+    for r in d["ranking"][1:]:
+        if r.get("reasons"):
+            con.print(f"  {r['surrogate']}: {escape(r['reasons'][0])}")
+    con.print(f"[dim]{CAUTION}[/]")
+    for w in written:
+        con.print(f"wrote {w}")

@@ -1,0 +1,16 @@
+import os
+import sys
+from pathlib import Path
+
+import pytest
+
+os.environ.setdefault("MPLBACKEND", "Agg")
+ROOT = Path(__file__).resolve().parent.parent
+TESTS = Path(__file__).resolve().parent
+if str(TESTS) not in sys.path:
+    sys.path.insert(0, str(TESTS))  # so `--surrogate user_models:BayesRidge` imports
+
+
+@pytest.fixture
+def sample_log():
+    return ROOT / "sample_logs" / "moulding_warpage.csv"
