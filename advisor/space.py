@@ -13,22 +13,78 @@ once, from the surrogate's declared ``input_encoding``:
 
 Log-scaled parameters are encoded as ``log10`` of the value, so a model sees decades as
 equal steps.
+
+Inference from data
+-------------------
+:meth:`ParameterSpace.infer` reads each column's kind from its values and records why in
+:attr:`Parameter.note`:
+
+* a column whose values are all numbers is numeric, never categorical, however few
+  distinct values it has (an integer column with three levels stays ``integer``);
+  whole numbers only → ``integer``, otherwise ``continuous``;
+* any other column (``"A1"``, ``"yes"``/``"no"``, ``"adam"``) is ``categorical``, levels
+  sorted as text;
+* a positive numeric column whose max/min ratio exceeds ``10 ** LOG_SPAN_DECADES``
+  (two decades) is log-scaled (common practice, no single source).
+
+The loader (:mod:`advisor.logs`) types the columns first (decimal commas, missing
+markers), so ``infer`` sees floats for numeric columns and text for the rest.
+
+Space file (TOML)
+-----------------
+A space file overrides the inference.  Every table and key is optional; unknown keys
+are refused so that a typo is not silently ignored::
+
+    [objective]
+    name = "val_mape"          # must equal the objective column if that is also given
+    direction = "minimize"     # or "maximize"; the default when no flag is given
+    unit = "%"
+
+    [space]
+    others = "infer"           # columns not listed below: "infer" (default) or "ignore"
+
+    [parameters.learning_rate]
+    kind = "continuous"        # "continuous" | "integer" | "categorical"
+    low = 1e-5                 # bounds in raw units; omitted bounds come from the data
+    high = 1e-1
+    log = true                 # omitted: inferred (positive and > 2 decades)
+    unit = "1"
+
+    [parameters.optimizer]
+    kind = "categorical"
+    levels = ["adam", "sgd", "rmsprop"]   # omitted: the levels seen in the data
+
+A parameter entry may give only some keys (``log = false`` alone, say); the rest is
+inferred from the data and the note says so.  A numeric column can be declared
+``categorical`` (its values become text labels).  Data outside declared bounds or levels
+is refused by the loader, naming the line.
+
+Direction rule: the file's ``direction`` is the default.  An explicit direction passed
+to :func:`advisor.logs.load_trials` (the CLI's ``--maximize``) that agrees is fine; one
+that conflicts is a :class:`~advisor.errors.UsageError` naming both, because silently
+preferring either could optimise the wrong way.
 """
 
 from __future__ import annotations
 
 import dataclasses
 import math
+import tomllib
 from dataclasses import dataclass, field
-from typing import Iterable, Literal, Sequence
+from pathlib import Path
+from typing import Literal, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 
-__all__ = ["Parameter", "ParameterSpace", "LOG_SPAN_DECADES"]
+from .errors import InputError
+
+__all__ = ["Parameter", "ParameterSpace", "SpaceFile", "read_space_file",
+           "LOG_SPAN_DECADES", "KINDS"]
 
 Kind = Literal["continuous", "integer", "categorical"]
 Encoding = Literal["onehot", "ordinal"]
+KINDS = ("continuous", "integer", "categorical")
 
 #: A positive numeric parameter whose max/min ratio exceeds this many decades is
 #: inferred log-scaled (common practice, no single source).
@@ -37,6 +93,11 @@ LOG_SPAN_DECADES = 2.0
 #: A numeric column with at most this many distinct integer values is still read as
 #: an integer parameter, not categorical (common practice for screening designs).
 _MAX_CATEGORICAL_LEVELS = 30
+
+_PARAM_KEYS = {"kind", "low", "high", "log", "levels", "unit"}
+_OBJECTIVE_KEYS = {"name", "direction", "unit"}
+_SPACE_KEYS = {"others"}
+_TOP_KEYS = {"objective", "space", "parameters"}
 
 
 @dataclass(frozen=True)
@@ -73,20 +134,39 @@ class Parameter:
     note: str = ""
 
     def __post_init__(self):
-        if self.kind not in ("continuous", "integer", "categorical"):
+        if self.kind not in KINDS:
             raise ValueError(f"parameter {self.name!r}: unknown kind {self.kind!r}")
         if self.kind == "categorical":
             if len(self.levels) < 1:
                 raise ValueError(f"categorical parameter {self.name!r} needs levels")
+            if len(set(self.levels)) != len(self.levels):
+                raise ValueError(f"categorical parameter {self.name!r}: levels repeat")
         else:
             if self.low is None or self.high is None or not self.low <= self.high:
                 raise ValueError(f"parameter {self.name!r}: bounds must satisfy low <= high")
+            if not (math.isfinite(self.low) and math.isfinite(self.high)):
+                raise ValueError(f"parameter {self.name!r}: bounds must be finite")
             if self.log and not self.low > 0:
                 raise ValueError(f"parameter {self.name!r}: log scale needs low > 0")
+            if self.kind == "integer" and math.ceil(self.low) > math.floor(self.high):
+                raise ValueError(f"integer parameter {self.name!r}: no whole number "
+                                 f"between {self.low} and {self.high}")
 
     @property
     def is_numeric(self) -> bool:
         return self.kind != "categorical"
+
+    def contains(self, values) -> np.ndarray:
+        """Boolean mask: which raw values lie inside the bounds / levels."""
+        if self.kind == "categorical":
+            text = pd.Series(values, dtype=object).astype(str).to_numpy()
+            return np.isin(text, np.array(self.levels, dtype=object))
+        x = pd.to_numeric(pd.Series(values), errors="coerce").to_numpy(dtype=float)
+        with np.errstate(invalid="ignore"):
+            inside = (x >= self.low) & (x <= self.high)
+            if self.kind == "integer":
+                inside &= np.equal(np.mod(x, 1.0), 0.0)
+        return inside
 
     def to_dict(self) -> dict:
         out = {"name": self.name, "kind": self.kind, "source": self.source,
@@ -101,6 +181,17 @@ class Parameter:
             out["note"] = self.note
         return out
 
+    @classmethod
+    def from_dict(cls, d: Mapping) -> "Parameter":
+        """Inverse of :meth:`to_dict` (for specs read back from a JSON report)."""
+        return cls(name=str(d["name"]), kind=d["kind"],
+                   low=None if d.get("low") is None else float(d["low"]),
+                   high=None if d.get("high") is None else float(d["high"]),
+                   log=d.get("scale", "linear") == "log",
+                   levels=tuple(str(v) for v in d.get("levels", ())),
+                   source=d.get("source", "given"), unit=d.get("unit", ""),
+                   note=d.get("note", ""))
+
     def describe(self) -> str:
         """Short human text: ``integer 1..12``, ``continuous 1e-05..0.1 (log)``, ``categorical {a, b}``."""
         if self.kind == "categorical":
@@ -111,7 +202,11 @@ class Parameter:
 
 @dataclass(frozen=True)
 class ParameterSpace:
-    """An ordered collection of :class:`Parameter`."""
+    """An ordered collection of :class:`Parameter`.
+
+    ``notes`` records decisions about the space as a whole (columns dropped as constant
+    or ignored as free text), in plain words.
+    """
 
     parameters: tuple[Parameter, ...]
     notes: tuple[str, ...] = field(default=())
@@ -144,22 +239,59 @@ class ParameterSpace:
                        for p in self.parameters)
         return ParameterSpace(params, self.notes)
 
+    def with_notes(self, *notes: str) -> "ParameterSpace":
+        """A copy with ``notes`` appended."""
+        return ParameterSpace(self.parameters, tuple(self.notes) + tuple(notes))
+
+    def subset(self, names: Sequence[str]) -> "ParameterSpace":
+        """A copy keeping only ``names``, in the given order."""
+        return ParameterSpace(tuple(self[n] for n in names), self.notes)
+
     def to_dict(self) -> list[dict]:
         return [p.to_dict() for p in self.parameters]
 
+    @classmethod
+    def from_dict(cls, items: Sequence[Mapping]) -> "ParameterSpace":
+        """Inverse of :meth:`to_dict`."""
+        return cls(tuple(Parameter.from_dict(d) for d in items))
+
     # -- inference ----------------------------------------------------------------
     @classmethod
-    def infer(cls, frame: pd.DataFrame, columns: Sequence[str]) -> "ParameterSpace":
+    def infer(cls, frame: pd.DataFrame, columns: Sequence[str],
+              given: Mapping[str, Mapping] | None = None,
+              source_name: str = "space file") -> "ParameterSpace":
         """Infer each column's kind, bounds and scale from the logged values.
 
         Numeric columns whose values are all whole numbers become integer parameters;
         other numeric columns continuous; everything else categorical (levels sorted as
         text).  A positive numeric column spanning more than ``LOG_SPAN_DECADES``
         decades is log-scaled (common practice, no single source).
+
+        Parameters
+        ----------
+        frame : DataFrame
+            Logged settings; numeric columns as numbers (text that parses as numbers is
+            also accepted), missing values as NaN/None (ignored).
+        columns : sequence of str
+            The parameter columns, in order.
+        given : mapping name → partial spec, optional
+            Keys from a space file (``kind``, ``low``, ``high``, ``log``, ``levels``,
+            ``unit``) that override the inference; missing keys are inferred.
+        source_name : str
+            How to name the space file in notes.
+
+        Raises
+        ------
+        ValueError
+            When a given spec is inconsistent (bounds reversed, log with low <= 0).
         """
+        given = given or {}
         params = []
         for name in columns:
-            params.append(_infer_parameter(name, frame[name]))
+            inferred = _infer_parameter(name, frame[name])
+            spec = given.get(name)
+            params.append(inferred if spec is None else
+                          _merge_given(inferred, frame[name], spec, source_name))
         return cls(tuple(params))
 
     # -- encoding -----------------------------------------------------------------
@@ -243,6 +375,7 @@ class ParameterSpace:
 
     def sample(self, n: int, rng: np.random.Generator) -> pd.DataFrame:
         """``n`` settings drawn uniformly inside the space (log-uniform on log scales)."""
+        rng = np.random.default_rng(rng)
         data = {}
         for p in self.parameters:
             if p.kind == "categorical":
@@ -261,20 +394,212 @@ class ParameterSpace:
         return pd.DataFrame(data)
 
 
+# -- space file -------------------------------------------------------------------------
+@dataclass(frozen=True)
+class SpaceFile:
+    """A parsed space file (see the module docstring for the schema).
+
+    Attributes
+    ----------
+    path : str
+    objective : str or None
+        Objective column name, when the file gives one.
+    direction : {"minimize", "maximize"} or None
+    unit : str
+        Objective unit.
+    parameters : dict name → dict
+        The partial specs, keys among ``kind low high log levels unit``.
+    others : {"infer", "ignore"}
+        What to do with columns the file does not list.
+    """
+
+    path: str
+    objective: str | None = None
+    direction: str | None = None
+    unit: str = ""
+    parameters: Mapping[str, Mapping] = field(default_factory=dict)
+    others: str = "infer"
+
+
+def read_space_file(path) -> SpaceFile:
+    """Parse and check a TOML space file.
+
+    Raises
+    ------
+    InputError
+        Missing file, invalid TOML (with the parser's line), unknown tables or keys,
+        wrong value types.
+    """
+    p = Path(path)
+    if not p.is_file():
+        raise InputError("space file does not exist" if not p.exists() else
+                         "space file is a folder", path=p, fix="name a .toml file")
+    try:
+        data = tomllib.loads(p.read_bytes().decode("utf-8-sig"))
+    except UnicodeDecodeError:
+        raise InputError("space file is not UTF-8 text", path=p,
+                         fix="re-save it as UTF-8") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc})", path=p,
+                         fix="see the schema in advisor/space.py") from None
+
+    def bad(msg, fix="see the schema in the advisor.space module docstring"):
+        return InputError(msg, path=p, fix=fix)
+
+    _check_keys(data, _TOP_KEYS, "top-level table", bad)
+    obj = data.get("objective", {})
+    if not isinstance(obj, dict):
+        raise bad("[objective] must be a table")
+    _check_keys(obj, _OBJECTIVE_KEYS, "[objective] key", bad)
+    direction = obj.get("direction")
+    if direction is not None and direction not in ("minimize", "maximize"):
+        raise bad(f"[objective] direction = {direction!r}",
+                  fix="write direction = \"minimize\" or \"maximize\"")
+    for key in ("name", "unit"):
+        if key in obj and not isinstance(obj[key], str):
+            raise bad(f"[objective] {key} must be text")
+    spc = data.get("space", {})
+    if not isinstance(spc, dict):
+        raise bad("[space] must be a table")
+    _check_keys(spc, _SPACE_KEYS, "[space] key", bad)
+    others = spc.get("others", "infer")
+    if others not in ("infer", "ignore"):
+        raise bad(f"[space] others = {others!r}", fix="write others = \"infer\" or \"ignore\"")
+    params = data.get("parameters", {})
+    if not isinstance(params, dict):
+        raise bad("[parameters] must hold one table per parameter")
+    checked = {}
+    for name, spec in params.items():
+        if not isinstance(spec, dict):
+            raise bad(f"parameters.{name} must be a table ([parameters.{name}])")
+        _check_keys(spec, _PARAM_KEYS, f"[parameters.{name}] key", bad)
+        checked[name] = _check_param_spec(name, spec, bad)
+    return SpaceFile(path=str(p), objective=obj.get("name"), direction=direction,
+                     unit=obj.get("unit", ""), parameters=checked, others=others)
+
+
+def _check_keys(table, allowed, what, bad):
+    import difflib
+    for key in table:
+        if key not in allowed:
+            near = difflib.get_close_matches(key, sorted(allowed), n=1)
+            hint = f"did you mean '{near[0]}'?" if near else \
+                "allowed: " + ", ".join(sorted(allowed))
+            raise bad(f"unknown {what} '{key}'", fix=hint)
+
+
+def _check_param_spec(name, spec, bad) -> dict:
+    kind = spec.get("kind")
+    if kind is not None and kind not in KINDS:
+        raise bad(f"[parameters.{name}] kind = {kind!r}",
+                  fix="use one of " + ", ".join(KINDS))
+    for key in ("low", "high"):
+        v = spec.get(key)
+        if v is not None and (isinstance(v, bool) or not isinstance(v, (int, float))
+                              or not math.isfinite(v)):
+            raise bad(f"[parameters.{name}] {key} must be a finite number, not {v!r}")
+    if "log" in spec and not isinstance(spec["log"], bool):
+        raise bad(f"[parameters.{name}] log must be true or false")
+    if "unit" in spec and not isinstance(spec["unit"], str):
+        raise bad(f"[parameters.{name}] unit must be text")
+    if "levels" in spec:
+        lv = spec["levels"]
+        if not isinstance(lv, list) or not lv or not all(
+                isinstance(v, (str, int, float)) and not isinstance(v, bool) for v in lv):
+            raise bad(f"[parameters.{name}] levels must be a non-empty list of values")
+        if kind not in (None, "categorical"):
+            raise bad(f"[parameters.{name}] levels given for kind {kind!r}",
+                      fix="drop levels or write kind = \"categorical\"")
+        if len({_level_text(v) for v in lv}) != len(lv):
+            raise bad(f"[parameters.{name}] levels repeat")
+    if (kind == "categorical" or "levels" in spec) and any(
+            k in spec for k in ("low", "high", "log")):
+        raise bad(f"[parameters.{name}] a categorical parameter has levels, not low/high/log")
+    lo, hi = spec.get("low"), spec.get("high")
+    if lo is not None and hi is not None and lo > hi:
+        raise bad(f"[parameters.{name}] low = {lo} is above high = {hi}")
+    if spec.get("log") and lo is not None and lo <= 0:
+        raise bad(f"[parameters.{name}] log = true needs low > 0, got low = {lo}")
+    out = dict(spec)
+    if "levels" in out:
+        out["levels"] = [_level_text(v) for v in out["levels"]]
+    return out
+
+
+def _level_text(v) -> str:
+    """Text form of a level, matching how the loader writes numeric labels (``3`` not ``3.0``)."""
+    if isinstance(v, float) and v.is_integer():
+        return str(int(v))
+    return str(v)
+
+
+def _merge_given(inferred: Parameter, series: pd.Series, spec: Mapping,
+                 source_name: str) -> Parameter:
+    kind = spec.get("kind") or ("categorical" if "levels" in spec else inferred.kind)
+    filled = []
+    if kind == "categorical":
+        if "levels" in spec:
+            levels = tuple(spec["levels"])
+        else:
+            present = series[series.notna()]
+            levels = tuple(sorted({_level_text(v) for v in present})) or ("",)
+            filled.append("levels")
+        return Parameter(inferred.name, "categorical", levels=levels, source="given",
+                         unit=spec.get("unit", ""),
+                         note=_given_note(source_name, filled))
+    if not inferred.is_numeric:
+        raise ValueError(f"parameter {inferred.name!r} is declared {kind} but its values "
+                         f"are text ({', '.join(inferred.levels[:4])})")
+    lo = spec.get("low")
+    hi = spec.get("high")
+    if lo is None:
+        lo = inferred.low
+        filled.append("low")
+    if hi is None:
+        hi = inferred.high
+        filled.append("high")
+    if "log" in spec:
+        log = bool(spec["log"])
+    else:
+        log = _wants_log(float(lo), float(hi))
+        filled.append("scale")
+    return Parameter(inferred.name, kind, float(lo), float(hi), log=log, source="given",
+                     unit=spec.get("unit", ""), note=_given_note(source_name, filled))
+
+
+def _given_note(source_name, filled) -> str:
+    note = f"given in {source_name}"
+    if filled:
+        note += "; " + ", ".join(filled) + " from the data"
+    return note
+
+
+def _wants_log(lo: float, hi: float) -> bool:
+    return bool(lo > 0 and hi / lo > 10.0 ** LOG_SPAN_DECADES)
+
+
 def _infer_parameter(name: str, series: pd.Series) -> Parameter:
-    numeric = pd.to_numeric(series, errors="coerce")
     present = series.notna()
+    if pd.api.types.is_bool_dtype(series.dtype):
+        numeric = pd.Series(np.nan, index=series.index)
+    else:
+        numeric = pd.to_numeric(series, errors="coerce")
     if present.any() and numeric[present].notna().all():
         x = numeric[present].to_numpy(dtype=float)
-        lo, hi = float(np.min(x)), float(np.max(x))
-        whole = bool(np.all(np.equal(np.mod(x, 1.0), 0.0)))
-        kind: Kind = "integer" if whole else "continuous"
-        log = bool(lo > 0 and hi / lo > 10.0 ** LOG_SPAN_DECADES)
-        notes = ["whole numbers only" if whole else "real values"]
-        if log:
-            notes.append(f"positive and spans {math.log10(hi / lo):.1f} decades, so log scale")
-        return Parameter(name, kind, lo, hi, log=log, note="; ".join(notes))
-    levels = tuple(sorted(series[present].astype(str).unique()))
+        x = x[np.isfinite(x)]
+        if x.size:
+            lo, hi = float(np.min(x)), float(np.max(x))
+            whole = bool(np.all(np.equal(np.mod(x, 1.0), 0.0)))
+            kind: Kind = "integer" if whole else "continuous"
+            log = _wants_log(lo, hi)
+            n_distinct = len(np.unique(x))
+            notes = [f"numbers only, whole ({n_distinct} distinct values)" if whole
+                     else "numbers only, with fractions"]
+            if log:
+                notes.append(f"positive and spans {math.log10(hi / lo):.1f} decades, "
+                             "so log scale")
+            return Parameter(name, kind, lo, hi, log=log, note="; ".join(notes))
+    levels = tuple(sorted({_level_text(v) for v in series[present]}))
     return Parameter(name, "categorical", levels=levels or ("",),
                      note=f"text values, {len(levels)} levels")
 
