@@ -1,0 +1,351 @@
+"""Small torch building blocks shared by the neural surrogates.
+
+* :func:`torch_threads` — the one place that sets torch's intra-op thread count;
+* :func:`torch_generator` — an explicit, seeded ``torch.Generator`` (no global RNG);
+* :class:`StackedMLP` — ``M`` independent multilayer perceptrons evaluated in one
+  batched matrix product (an ensemble, or the retained samples of a sampler);
+* :func:`mixture_moments` — mean and variance of a finite Gaussian mixture;
+* :func:`holdout_split`, :func:`epoch_batches`, :func:`epochs_for` — data handling for
+  mini-batch training with early stopping;
+* :class:`LatentSamplerMixin` — ``sample_y`` in raw units from a model's
+  ``_sample_latent`` on standardized data.
+
+All randomness here comes from a ``torch.Generator`` or a numpy ``Generator`` passed in;
+nothing reads or changes torch's global random state.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+
+import numpy as np
+import torch
+
+__all__ = ["torch_threads", "torch_generator", "StackedMLP", "mixture_moments",
+           "holdout_split", "epoch_batches", "epochs_for", "as_tensor",
+           "LatentSamplerMixin", "THREADS_ENV", "train_with_early_stopping"]
+
+#: Environment variable read by :func:`torch_threads`.
+THREADS_ENV = "ADVISOR_TORCH_THREADS"
+
+_DTYPE = torch.float32
+
+
+def torch_threads() -> int:
+    """Set torch's intra-op thread count from ``ADVISOR_TORCH_THREADS`` (default 1).
+
+    The tool runs surrogate fits in parallel *processes*, so one thread per process is
+    the right default; more threads per tiny network only add contention.  Called at
+    the start of every neural fit and predict.
+
+    Returns
+    -------
+    int
+        The thread count now in force.
+    """
+    raw = os.environ.get(THREADS_ENV, "1")
+    try:
+        n = max(1, int(raw))
+    except ValueError:
+        raise ValueError(f"{THREADS_ENV}={raw!r} is not a whole number; "
+                         f"set it to e.g. 1 or 2") from None
+    if torch.get_num_threads() != n:
+        torch.set_num_threads(n)
+    return n
+
+
+def torch_generator(seed) -> torch.Generator:
+    """A CPU ``torch.Generator`` seeded from an int or a numpy Generator."""
+    if isinstance(seed, np.random.Generator):
+        seed = int(seed.integers(2**63 - 1))
+    g = torch.Generator(device="cpu")
+    g.manual_seed(int(seed) % (2**63 - 1))
+    return g
+
+
+def as_tensor(a) -> torch.Tensor:
+    return torch.as_tensor(np.asarray(a, dtype=np.float32), dtype=_DTYPE)
+
+
+_ACTIVATIONS = {"tanh": torch.tanh, "relu": torch.relu}
+
+
+class StackedMLP(torch.nn.Module):
+    """``M`` independent fully connected networks evaluated together.
+
+    Layer ``l`` of member ``m`` computes ``h @ W[l][m] + b[l][m]``; all members are
+    run in one ``torch.baddbmm`` call, so an ensemble of five costs about what one
+    network costs at this size.  All weights live in one parameter ``flat`` of shape
+    (M, P), one row per member, and the layers are views into it.  We hand-write this
+    instead of ``torch.func`` model stacking because (a) optimizers then update one
+    tensor per step, which for networks this small is most of the cost, and (b)
+    members are copied and restored row-wise for early stopping and for stacking
+    sampler draws.
+
+    Parameters
+    ----------
+    d_in, d_out : int
+        Input and output widths.
+    hidden : sequence of int
+        Hidden-layer widths.
+    members : int
+        Number of independent networks ``M``.
+    activation : {"tanh", "relu"}
+    generator : torch.Generator
+        Source of the initial weights: each member gets its own draw from
+        ``U(-1/sqrt(fan_in), 1/sqrt(fan_in))`` (the default of ``torch.nn.Linear``).
+
+    Notes
+    -----
+    ``forward`` takes ``(B, d_in)`` (the same inputs for every member) or
+    ``(M, B, d_in)`` (each member its own batch) and returns ``(M, B, d_out)``.
+    ``features`` returns the last hidden layer instead.
+    """
+
+    def __init__(self, d_in, d_out, hidden=(50, 50, 50), members=1, activation="tanh",
+                 generator=None):
+        super().__init__()
+        if activation not in _ACTIVATIONS:
+            raise ValueError(f"activation={activation!r}; use one of {sorted(_ACTIVATIONS)}")
+        self.activation = activation
+        self.members = int(members)
+        self.widths = [int(d_in), *[int(h) for h in hidden], int(d_out)]
+        self._slices, chunks, offset = [], [], 0
+        for fan_in, fan_out in zip(self.widths[:-1], self.widths[1:]):
+            bound = 1.0 / math.sqrt(fan_in)
+            for shape in ((fan_in, fan_out), (1, fan_out)):
+                size = shape[0] * shape[1]
+                self._slices.append((offset, offset + size, shape))
+                offset += size
+                chunks.append((torch.rand(self.members, size, generator=generator) * 2 - 1)
+                              * bound)
+        self.flat = torch.nn.Parameter(torch.cat(chunks, dim=1))
+
+    def _layers(self):
+        m = self.members
+        views = [self.flat[:, a:b].view(m, *shape) for a, b, shape in self._slices]
+        return list(zip(views[0::2], views[1::2]))
+
+    def _expand(self, x):
+        if x.dim() == 2:
+            return x.unsqueeze(0).expand(self.members, -1, -1)
+        return x
+
+    def _hidden(self, x, layers):
+        act = _ACTIVATIONS[self.activation]
+        h = self._expand(x)
+        for w, b in layers[:-1]:
+            h = act(torch.baddbmm(b, h, w))
+        return h
+
+    def features(self, x):
+        return self._hidden(x, self._layers())
+
+    def forward(self, x):
+        layers = self._layers()
+        w, b = layers[-1]
+        return torch.baddbmm(b, self._hidden(x, layers), w)
+
+    # -- member-wise state, for early stopping and for stacking sampler draws -------
+    def state_copy(self) -> torch.Tensor:
+        return self.flat.detach().clone()
+
+    def load_members(self, saved: torch.Tensor, mask: torch.Tensor):
+        """Copy members where ``mask`` (bool, shape (M,)) is true from ``saved``."""
+        with torch.no_grad():
+            self.flat[mask] = saved[mask]
+
+    def store_members(self, saved: torch.Tensor, mask: torch.Tensor):
+        """Copy the current members where ``mask`` is true into ``saved``."""
+        with torch.no_grad():
+            saved[mask] = self.flat.detach()[mask]
+
+    @classmethod
+    def from_draws(cls, template: "StackedMLP", draws: list[torch.Tensor]):
+        """A stacked network whose members are saved parameter rows (each (1, P))."""
+        net = cls(template.widths[0], template.widths[-1], template.widths[1:-1],
+                  members=len(draws), activation=template.activation,
+                  generator=torch_generator(0))
+        with torch.no_grad():
+            net.flat.copy_(torch.cat(draws, dim=0))
+        return net
+
+
+def mixture_moments(means, variances, weights=None):
+    """Mean and variance of a finite mixture of Gaussians, component by component.
+
+    For components ``k`` with weights ``w_k`` (summing to one), means ``mu_k`` and
+    variances ``s_k^2``, the law of total variance gives
+
+    .. math::
+
+        \\mu_* = \\sum_k w_k \\mu_k, \\qquad
+        \\sigma_*^2 = \\sum_k w_k (s_k^2 + \\mu_k^2) - \\mu_*^2 .
+
+    With uniform weights this is the combination rule of a deep ensemble
+    [LPB2017]_ (Sec. 2.4) and of a mixture over posterior samples.
+
+    Parameters
+    ----------
+    means, variances : array_like, shape (K, n)
+        Component means and variances at ``n`` points (a 1-D input is one point).
+    weights : array_like, shape (K,), optional
+        Non-negative mixture weights; normalised here.  Uniform when omitted.
+
+    Returns
+    -------
+    mean, variance : ndarray, shape (n,)
+
+    References
+    ----------
+    .. [LPB2017] Lakshminarayanan, B., Pritzel, A. & Blundell, C. (2017). Simple and
+       scalable predictive uncertainty estimation using deep ensembles. NeurIPS.
+    """
+    means = np.asarray(means, dtype=float)
+    variances = np.asarray(variances, dtype=float)
+    if means.ndim == 1:
+        means, variances = means[:, None], variances[:, None]
+    if means.shape != variances.shape:
+        raise ValueError(f"means {means.shape} and variances {variances.shape} differ")
+    k = means.shape[0]
+    if weights is None:
+        w = np.full(k, 1.0 / k)
+    else:
+        w = np.asarray(weights, dtype=float).ravel()
+        if w.shape != (k,) or np.any(w < 0) or w.sum() <= 0:
+            raise ValueError(f"weights must be {k} non-negative numbers with a positive sum")
+        w = w / w.sum()
+    mean = w @ means
+    # Centre before squaring: sum w (s^2 + (mu - mean)^2) equals the formula above
+    # but does not lose precision when the means are large and close together.
+    var = w @ (variances + (means - mean) ** 2)
+    return mean, var
+
+
+def holdout_split(n: int, fraction: float, rng: np.random.Generator, min_holdout: int = 5,
+                  min_train: int = 10):
+    """Random (train, held-out) index arrays; no held-out rows when n is too small.
+
+    Returns ``(train, val)``; ``val`` is empty when ``n < min_train + min_holdout``.
+    """
+    n_val = int(round(fraction * n))
+    if n - max(n_val, min_holdout) < min_train or fraction <= 0:
+        return np.arange(n), np.arange(0)
+    n_val = max(n_val, min_holdout)
+    perm = rng.permutation(n)
+    return np.sort(perm[n_val:]), np.sort(perm[:n_val])
+
+
+def epochs_for(n_train: int, batch_size: int, target_steps: int, min_epochs: int,
+               max_epochs: int) -> int:
+    """Epochs giving about ``target_steps`` optimizer steps, clipped to [min, max].
+
+    A budget in steps rather than epochs keeps small data sets (one batch an epoch)
+    from stopping after too few updates and large ones from running too long.
+    """
+    per_epoch = max(1, math.ceil(n_train / batch_size))
+    return int(min(max_epochs, max(min_epochs, math.ceil(target_steps / per_epoch))))
+
+
+def epoch_batches(n: int, batch_size: int, generator: torch.Generator, members: int = 1):
+    """Index batches for one epoch: a tensor (members, b) per batch, own shuffle each.
+
+    The last, smaller batch is merged into the one before it so no step sees a
+    handful of rows (noisy gradients) — our choice.
+    """
+    perms = torch.stack([torch.randperm(n, generator=generator) for _ in range(members)])
+    n_batches = max(1, n // batch_size)
+    edges = np.linspace(0, n, n_batches + 1).round().astype(int)
+    return [perms[:, a:b] for a, b in zip(edges[:-1], edges[1:])]
+
+
+class LatentSamplerMixin:
+    """``sample_y`` in raw units from ``_sample_latent(Xs, n_samples, rng)``.
+
+    ``_sample_latent`` returns joint draws of the latent function on standardized
+    inputs, shape ``(n_samples, len(Xs))``, in standardized output units.
+    """
+
+    def sample_y(self, X, n_samples: int, rng=None):
+        """Joint draws of the latent function at ``X``, shape (n_samples, len(X)).
+
+        Parameters
+        ----------
+        X : array_like, shape (n, d)
+        n_samples : int
+        rng : int or numpy.random.Generator, optional
+        """
+        rng = np.random.default_rng(rng)
+        n_samples = int(n_samples)
+        if n_samples < 1:
+            raise ValueError(f"n_samples={n_samples}; ask for at least one draw")
+        Xs = self._scale_x(X)
+        f = np.asarray(self._sample_latent(Xs, n_samples, rng), dtype=float)
+        return self.y_mean_ + self.y_scale_ * f
+
+
+def train_with_early_stopping(net: StackedMLP, member_loss, X: torch.Tensor, y: torch.Tensor,
+                              train_idx, val_idx, *, batch_size: int, epochs: int,
+                              patience: int, lr: float, generator: torch.Generator,
+                              weight_decay: float = 0.0) -> dict:
+    """Adam on mini-batches; each member keeps its own best epoch on the held-out rows.
+
+    Parameters
+    ----------
+    net : StackedMLP
+    member_loss : callable
+        ``member_loss(out, y) -> (M,)``: mean loss of each member, with ``out`` of shape
+        (M, B, d_out) and ``y`` of shape (M, B).
+    X, y : torch.Tensor, shapes (n, d) and (n,)
+    train_idx, val_idx : array of int
+        Rows to train on and rows for early stopping (may be empty: then the last
+        epoch is kept).
+    batch_size, epochs, patience, lr, weight_decay : training budget.
+    generator : torch.Generator
+        Shuffles; each member gets its own order.
+
+    Returns
+    -------
+    dict
+        ``epochs_run`` and per-member ``best_epoch`` (plain ints).
+
+    Notes
+    -----
+    Members are trained on the sum of their losses: Adam's update is element-wise, so
+    this is the same as training each member alone with the same settings.
+    Early stopping on a held-out slice is common practice (e.g. Prechelt 1998).
+    """
+    m = net.members
+    Xt, yt = X[train_idx], y[train_idx]
+    has_val = len(val_idx) > 0
+    if has_val:
+        Xv, yv = X[val_idx], y[val_idx].unsqueeze(0).expand(m, -1)
+    # The fused kernel updates all tensors in one call; with a handful of small
+    # tensors the per-tensor loop otherwise dominates a step.
+    opt = torch.optim.Adam(net.parameters(), lr=lr, weight_decay=weight_decay, fused=True)
+    best = torch.full((m,), float("inf"))
+    best_epoch = torch.zeros(m, dtype=torch.long)
+    saved = net.state_copy()
+    epoch = 0
+    for epoch in range(1, epochs + 1):
+        net.train()
+        for idx in epoch_batches(len(train_idx), batch_size, generator, m):
+            opt.zero_grad(set_to_none=True)
+            loss = member_loss(net(Xt[idx]), yt[idx]).sum()
+            loss.backward()
+            opt.step()
+        if not has_val:
+            continue
+        with torch.no_grad():
+            val = member_loss(net(Xv), yv)
+        improved = val < best
+        best = torch.where(improved, val, best)
+        best_epoch = torch.where(improved, torch.full_like(best_epoch, epoch), best_epoch)
+        net.store_members(saved, improved)
+        if bool(torch.all(epoch - best_epoch >= patience)):
+            break
+    if has_val:
+        net.load_members(saved, torch.ones(m, dtype=torch.bool))
+    return {"epochs_run": int(epoch),
+            "best_epoch": [int(e) for e in best_epoch] if has_val else [int(epoch)] * m}
