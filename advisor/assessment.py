@@ -178,6 +178,11 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         if ":" not in n and n not in surrogate_names():
             raise UsageError(f"unknown surrogate '{n}'; known: " + ", ".join(surrogate_names()),
                              fix="pick listed names or give module:Class")
+    if batch < 1 or (budget is not None and budget < 3) or propose < 0:
+        raise UsageError(f"batch={batch}, budget={budget}, propose={propose}: batch must be "
+                         "at least 1, budget at least 3, propose at least 0",
+                         fix="pass sensible sizes")
+    settings = _settings(acquisitions, quick) if backtest else None
     encodings = {n: _encoding_of(n) for n in names}
     executor = Executor(jobs=jobs, scheduler=scheduler, progress=progress)
 
@@ -248,9 +253,29 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     ranking = rank_surrogates(preds, fail_text, fit_s, **rank_kwargs)
 
     backtest_out = None
-    # (the acquisition backtest and the next-campaign plan hook in here)
+    t_bt = time.perf_counter()
+    if backtest and ranking.leader is not None:
+        candidates = _backtest_candidates(ranking, quick)
+        if candidates:
+            backtest_out = _run_backtest(trials, candidates, settings, seed=seed,
+                                         quick=quick, budget=budget, batch=batch,
+                                         executor=executor)
+            scores = {n: backtest_out["per_surrogate"][n]["score"] for n in candidates
+                      if backtest_out["per_surrogate"].get(n, {}).get("score") is not None}
+            ranking = rank_surrogates(preds, fail_text, fit_s, backtest_score=scores,
+                                      **rank_kwargs)
+    t_bt = time.perf_counter() - t_bt
 
     rec = _recommendation(ranking, backtest_out)
+    t_plan = time.perf_counter()
+    planning_out, proposals = None, None
+    if plan and rec["surrogate"] is not None:
+        planning_out, proposals = _plan(trials, rec, names=[n for n in names
+                                                            if n not in failures],
+                                        seed=seed, quick=quick, budget=budget,
+                                        propose=propose, max_fit_seconds=max_fit_seconds,
+                                        executor=executor)
+    t_plan = time.perf_counter() - t_plan
     table = ranking.table
     noise_out = {"replicates": _replicate_noise(trials), "fitted": noise}
     a = Assessment(
@@ -263,10 +288,12 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         fold_metrics=pd.DataFrame(fold_rows), metrics=metrics, intervals=intervals,
         failures=failures, recalibration=recal, ranking=table, recommendation=rec,
         reasons=ranking.reasons, noise=noise_out, model_info=info, backtest=backtest_out,
+        planning=planning_out, proposals=proposals,
         versions=_package_versions(), command=command,
         created=_dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         ranking_rule=ranking.method)
-    a.timing = {"cross_validation_seconds": t_cv,
+    a.timing = {"cross_validation_seconds": t_cv, "backtest_seconds": t_bt,
+                "planning_seconds": t_plan,
                 "total_seconds": time.perf_counter() - t_start}
     return a
 
@@ -285,14 +312,23 @@ def _recommendation(ranking, backtest_out) -> dict:
     acq = dict(DEFAULT_ACQUISITION)
     source = "default"
     reasons = list(ranking.reasons.get(leader, []))
-    if backtest_out and backtest_out.get("choice"):
-        acq = backtest_out["choice"]["acquisition"]
+    choice = (backtest_out or {}).get("per_surrogate", {}).get(leader)
+    if choice and choice.get("acquisition"):
+        acq = dict(choice["acquisition"])
         source = "backtest"
-        reasons += backtest_out["choice"].get("reasons", [])
+        reasons += [f"acquisition {choice['label']}: {r}" if i == 0 else r
+                    for i, r in enumerate(choice.get("reasons", []))]
+    elif backtest_out is not None:
+        reasons.append("acquisition setting is a default (expected improvement, xi = 0.01): "
+                       f"the backtest did not cover {leader} without error")
     else:
         reasons.append("acquisition setting is a default (expected improvement, xi = 0.01): "
                        "the acquisition backtest did not run")
     return {"surrogate": leader, "acquisition": acq, "acquisition_source": source,
+            "acquisition_margins": None if not (choice and choice.get("acquisition")) else {
+                "over_runner_up": choice.get("margin_over_runner_up"),
+                "over_random": choice.get("margin_over_random"),
+                "runner_up": (choice.get("runner_up") or {}).get("label")},
             "variance_scale": float(row["variance_scale"]),
             "confidence": ranking.confidence, "statement": ranking.statement,
             "runner_up": runner, "reasons": reasons}
@@ -306,3 +342,76 @@ def _replicate_noise(trials: TrialTable):
         return fn()
     except Exception:  # a summary for the report; never worth failing the run over
         return None
+
+
+def _backtest_candidates(ranking, quick: bool) -> list[str]:
+    """The models worth backtesting: those tied with the leader, then the next best
+    guard-passing models, up to 2 (quick) or 3 in all.  Backtesting refits a model at
+    every step, so the grid is kept to the models that could be recommended."""
+    t = ranking.table
+    ok = t[(t["status"] == "ok")]
+    ok = ok[ok["guard_coverage"].astype(bool) & ok["guard_order"].astype(bool)]
+    cap = 2 if quick else 3
+    tied = ok[ok["tied_with_leader"].astype(bool)]["surrogate"].tolist()
+    rest = [n for n in ok["surrogate"].tolist() if n not in tied]
+    return (tied + rest)[:max(cap, min(len(tied), cap + 1))]
+
+
+def _settings(acquisitions, quick: bool):
+    from .acquisition import default_settings, parse_settings
+
+    if acquisitions is None:
+        return default_settings(quick)
+    if isinstance(acquisitions, str):
+        return parse_settings(acquisitions)
+    return list(acquisitions)
+
+
+def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, executor):
+    from .backtest import run_backtest
+
+    return run_backtest(trials, candidates, settings, seed=seed, quick=quick,
+                        budget=budget, batch=batch, executor=executor)
+
+
+def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor):
+    """Relevance, learning curve and cost projection for the recommended surrogate, and
+    the proposed first batch.  Each part that fails is recorded, never fatal."""
+    from . import planning
+    from .acquisition import AcquisitionSetting
+
+    leader = rec["surrogate"]
+    out: dict = {"surrogate": leader, "caution": planning.CAUTION, "errors": {}}
+    next_budget = budget or int(np.median([c["trials"] for c in trials.campaign_summary()]))
+
+    def attempt(key, fn):
+        try:
+            out[key] = fn()
+        except UsageError:
+            raise
+        except Exception as exc:  # a plan section failing must not sink the assessment
+            out[key] = None
+            out["errors"][key] = f"{type(exc).__name__}: {exc}".splitlines()[0][:300]
+
+    attempt("relevance", lambda: planning.parameter_relevance(
+        trials, leader, seed=seed, quick=quick, executor=executor))
+    attempt("learning_curve", lambda: planning.learning_curve(
+        trials, leader, seed=seed, quick=quick, executor=executor))
+    attempt("cost", lambda: planning.cost_projection(
+        trials, names, seed=seed, quick=quick, budget=next_budget,
+        max_fit_seconds=max_fit_seconds))
+    proposals = None
+    if propose:
+        frozen = {p["name"]: p["freeze_value"] for p in
+                  ((out.get("relevance") or {}).get("parameters") or []) if p.get("freeze")}
+        setting = AcquisitionSetting(rec["acquisition"]["name"], rec["acquisition"]["params"])
+        try:
+            proposals = planning.propose_batch(trials, leader, setting, propose, seed=seed,
+                                               quick=quick, frozen=frozen or None)
+            out["proposals"] = {"k": int(propose), "frozen": frozen,
+                                "rows": proposals.to_dict(orient="records")}
+        except UsageError:
+            raise
+        except Exception as exc:
+            out["errors"]["proposals"] = f"{type(exc).__name__}: {exc}".splitlines()[0][:300]
+    return out, proposals
