@@ -1,0 +1,278 @@
+"""Tests for advisor.backtest: pool replay invariants, posterior stand-ins, determinism,
+failure isolation and the choice rule."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import special
+from threadpoolctl import threadpool_limits
+
+from advisor.acquisition import AcquisitionSetting, default_settings
+from advisor.backtest import (campaign_pools, choose_setting, plan_for, posterior_standins,
+                              replay_pool, run_backtest)
+from advisor.execution import Executor
+from advisor.logs import load_trials
+from advisor.surrogates import make_surrogate
+
+
+@pytest.fixture(autouse=True)
+def _one_blas_thread():
+    # small matrices: threaded BLAS only adds contention on a shared 2-core machine
+    with threadpool_limits(limits=1):
+        yield
+
+
+@pytest.fixture(scope="module")
+def trials(tmp_path_factory):
+    """3 campaigns x 14 trials of a shifted Branin-like surface, rows shuffled in the
+    file (so the order column, not the file order, must set the replay start), one
+    failed trial."""
+    rng = np.random.default_rng(7)
+    rows = []
+    for c in range(3):
+        for run in range(1, 15):
+            x1, x2 = rng.uniform(-5, 10), rng.uniform(0, 15)
+            mat = ["a", "b"][int(rng.integers(2))]
+            y = ((x2 - 5.1 / (4 * math.pi ** 2) * x1 ** 2 + 5 / math.pi * x1 - 6) ** 2
+                 + 10 * (1 - 1 / (8 * math.pi)) * math.cos(x1) + 10 + 5 * (mat == "b") + c)
+            rows.append({"series": f"S{c}", "run": run, "x1": round(x1, 3),
+                         "x2": round(x2, 3), "mat": mat, "loss": round(y, 4)})
+    frame = pd.DataFrame(rows).sample(frac=1.0, random_state=3)
+    frame.iloc[5, frame.columns.get_loc("loss")] = np.nan
+    path = tmp_path_factory.mktemp("logs") / "toy.csv"
+    frame.to_csv(path, index=False)
+    return load_trials(path, objective="loss", campaign="series", order="run")
+
+
+SMALL = dict(replay_seeds=1, replay_max_picks=5, refit_every=3, random_orders=16,
+             sim_functions=2, sim_seeds=1, sim_extra_candidates=40, sim_max_budget=8)
+
+
+class _Broken:
+    """A surrogate that cannot be fitted."""
+
+    def __init__(self, seed=0, quick=False):
+        pass
+
+    def fit(self, X, y):
+        raise RuntimeError("cannot fit on purpose")
+
+    def predict(self, X):  # pragma: no cover - never reached
+        raise RuntimeError
+
+
+def make_with_broken(name, seed=0, quick=False):
+    """Top-level (picklable) factory: the project registry plus a broken model."""
+    if name == "broken":
+        return _Broken(seed, quick)
+    return make_surrogate(name, seed=seed, quick=quick)
+
+
+# -- pool replay ------------------------------------------------------------------------
+def test_campaign_pools_follow_the_order_column(trials):
+    pools = campaign_pools(trials)
+    assert [p["campaign"] for p in pools] and len(pools) == 3
+    used = trials.used
+    for p in pools:
+        runs = used["run"].to_numpy()[p["rows"]]
+        assert list(runs) == sorted(runs)
+        assert set(used["series"].astype(str).to_numpy()[p["rows"]]) == {p["campaign"]}
+    assert sum(len(p["rows"]) for p in pools) == trials.n_used == 41
+
+
+@pytest.mark.parametrize("setting", [AcquisitionSetting("ei", {"xi": 0.01}),
+                                     AcquisitionSetting("thompson"),
+                                     AcquisitionSetting("random")])
+@pytest.mark.parametrize("batch", [1, 3])
+def test_full_replay_never_repeats_and_reaches_the_logged_best(trials, setting, batch):
+    pool = campaign_pools(trials)[0]
+    frame = trials.used.iloc[pool["rows"]][trials.params].reset_index(drop=True)
+    y = pool["y"]
+    init = [0, 1, 2]
+    picked, _ = replay_pool(make_surrogate, "gp", setting, trials.space, frame, y, init,
+                            n_picks=len(y), batch=batch, refit_every=4, quick=True, rng=1)
+    # never twice, never a start trial, never outside the pool
+    assert len(set(picked)) == len(picked) == len(y) - len(init)
+    assert not set(picked) & set(init)
+    assert set(picked) <= set(range(len(y)))
+    # the ceiling: a full replay has run every logged trial, so its best is the log's
+    assert y[init + picked].min() == y.min() == trials.y[pool["rows"]].min()
+
+
+def test_run_backtest_replay_stays_in_each_campaign(trials):
+    plan = plan_for(True, **dict(SMALL, replay_max_picks=None, simulate=False))
+    out = run_backtest(trials, ["gp"], [AcquisitionSetting("ucb", {"beta": 4.0})], seed=0,
+                       quick=True, plan=plan)
+    used = trials.used
+    lines_of = {c: set(used.loc[used["series"].astype(str) == c, "_line"].astype(int))
+                for c in used["series"].astype(str).unique()}
+    runs = out["replay"]["results"][0]["runs"]
+    assert len(runs) == 3
+    for run in runs:
+        lines = run["picked_lines"]
+        assert len(lines) == len(set(lines)) == len(lines_of[run["unit"]])
+        assert set(lines) == lines_of[run["unit"]]
+    # full replays end at regret 0 (the campaign's logged best), whatever the order
+    for sec in (out["replay"]["results"][0], out["replay"]["random"], out["replay"]["actual"]):
+        assert sec["curve"]["q75"][-1] == 0.0
+    # the start is the campaign's first trials by the order column
+    for run in runs:
+        first = used.set_index("_line").loc[run["picked_lines"][:2], "run"].tolist()
+        assert first == [1, 2]
+
+
+def test_random_order_baseline_matches_the_hypergeometric_law(trials):
+    # After a fixed start of 2 trials, the rest come in uniformly random order.  If the
+    # start holds none of the k best of a campaign, the position T of the first of them
+    # among the other m = n - 2 has E[T] = (m + 1)/(k + 1) (first success when drawing
+    # without replacement; Feller 1968, ch. II) and P(T <= t) = 1 - C(m-k, t)/C(m, t).
+    shuffles = 3000
+    plan = plan_for(True, **dict(SMALL, random_orders=shuffles, replay_max_picks=None,
+                                 simulate=False, n_init=2))
+    out = run_backtest(trials, ["gp"], [AcquisitionSetting("random")], seed=3, quick=True,
+                       plan=plan)
+    expected_mean, cdfs = [], []
+    for camp, pool in zip(out["replay"]["campaigns"], campaign_pools(trials)):
+        y = pool["y"]
+        hits = y <= camp["threshold_best5"]
+        if hits[:2].any():  # found within the start: a fixed value
+            t0 = int(np.flatnonzero(hits)[0]) + 1
+            expected_mean.append(t0)
+            cdfs.append([float(t >= t0) for t in range(len(y) + 1)])
+            continue
+        m, k = len(y) - 2, int(hits.sum())
+        expected_mean.append(2 + (m + 1) / (k + 1))
+        # index = trials run; none of the k best among the first 2 (the start)
+        cdfs.append([0.0, 0.0, 0.0] + [1 - special.comb(m - k, t) / special.comb(m, t)
+                                  for t in range(1, m + 1)])
+    rnd = out["replay"]["random"]["trials_to_best5"]
+    assert out["replay"]["random"]["runs_count"] == rnd["n"] == 3 * shuffles
+    assert rnd["censored"] == 0  # a full replay always gets there
+    # equal shuffles per campaign, so the pooled law is the mean of the three;
+    # tolerance: 4 standard errors of the pooled mean
+    assert abs(rnd["mean"] - np.mean(expected_mean)) < 4 * rnd["sd"] / math.sqrt(rnd["n"])
+    top = max(len(c) for c in cdfs)  # past a campaign's end its law is 1
+    pooled = np.mean([c + [1.0] * (top - len(c)) for c in cdfs], axis=0)
+    t_med = int(np.flatnonzero(pooled >= 0.5)[0])
+    assert abs(rnd["median"] - t_med) <= 1  # median of a discrete law: within one trial
+
+
+# -- simulated campaigns -------------------------------------------------------------------
+def test_standin_optimum_is_the_minimum_of_the_drawn_function(trials):
+    st = posterior_standins(trials, n_functions=4, n_extra=60, seed=2, quick=True)
+    assert st.values.shape == (4, trials.n_used + 60)
+    # exact: the stand-in is defined on the candidate set only
+    assert np.array_equal(st.optimum, st.values.min(axis=1))
+    assert np.array_equal(st.values[np.arange(4), st.argmin], st.optimum)
+    # the candidate set starts with the logged settings, then samples inside the space
+    logged = trials.used[trials.params].reset_index(drop=True)
+    pd.testing.assert_frame_equal(st.frame.iloc[:trials.n_used].reset_index(drop=True),
+                                  logged, check_dtype=False)
+    extra = st.frame.iloc[trials.n_used:]
+    assert extra["x1"].between(trials.space["x1"].low, trials.space["x1"].high).all()
+    # the functions are distinct draws, not copies
+    assert not np.allclose(st.values[0], st.values[1])
+
+
+def test_simulated_regret_is_exact_and_random_search_is_reported(trials):
+    plan = plan_for(True, **dict(SMALL, replay=False))
+    out = run_backtest(trials, ["gp"], [AcquisitionSetting("ei", {"xi": 0.01})], seed=1,
+                       quick=True, plan=plan)
+    sim = out["simulated"]
+    assert sim["error"] is None and sim["budget"] == 8 and len(sim["functions"]) == 2
+    res = sim["results"][0]
+    assert res["error"] is None and res["runs_count"] == 2
+    assert len(res["curve"]["median"]) == 8
+    # normalized regret lies in [0, 1] and never increases (best-so-far)
+    for sec in (res, sim["random"]):
+        med = np.array(sec["curve"]["median"])
+        assert np.all((med >= 0) & (med <= 1)) and np.all(np.diff(med) <= 1e-12)
+    assert out["replay"] is None
+
+
+# -- determinism, failures, executor ---------------------------------------------------
+def test_same_seed_same_output_and_broken_surrogate_is_recorded(trials):
+    plan = plan_for(True, **SMALL)
+    settings = [AcquisitionSetting("ei", {"xi": 0.01}), AcquisitionSetting("thompson")]
+    kw = dict(seed=5, quick=True, plan=plan, make=make_with_broken)
+    a = run_backtest(trials, ["gp", "broken"], settings, **kw)
+    b = run_backtest(trials, ["gp", "broken"], settings, **kw)
+    text = json.dumps(a, sort_keys=True)  # also proves the dict is JSON-ready
+    assert text == json.dumps(b, sort_keys=True)
+    c = run_backtest(trials, ["gp", "broken"], settings, **dict(kw, seed=6))
+    assert json.dumps(c, sort_keys=True) != text
+
+    assert a["failures"] and {f["surrogate"] for f in a["failures"]} == {"broken"}
+    assert "cannot fit on purpose" in a["failures"][0]["error"]
+    for part in ("replay", "simulated"):
+        by = {(r["surrogate"], r["label"]): r for r in a[part]["results"]}
+        assert by[("broken", "EI xi=0.01")]["error"].startswith("RuntimeError")
+        assert by[("gp", "EI xi=0.01")]["error"] is None
+        assert by[("gp", "Thompson")]["draws"] == "joint"
+    assert a["per_surrogate"]["broken"]["acquisition"] is None
+    assert a["per_surrogate"]["gp"]["label"] in ("EI xi=0.01", "Thompson")
+    assert a["choice"]["surrogate"] == "gp"
+
+
+def test_parallel_executor_gives_the_serial_result(trials):
+    plan = plan_for(True, **dict(SMALL, sim_functions=1))
+    settings = [AcquisitionSetting("ucb", {"beta": 4.0})]
+    serial = run_backtest(trials, ["gp"], settings, seed=0, quick=True, plan=plan)
+    par = run_backtest(trials, ["gp"], settings, seed=0, quick=True, plan=plan,
+                       executor=Executor(jobs=2))
+    assert json.dumps(serial, sort_keys=True) == json.dumps(par, sort_keys=True)
+
+
+def test_usage_errors(trials):
+    from advisor.errors import UsageError
+
+    with pytest.raises(UsageError, match="no acquisition"):
+        run_backtest(trials, ["gp"], [], seed=0, quick=True)
+    with pytest.raises(UsageError, match="batch"):
+        run_backtest(trials, ["gp"], default_settings(True), seed=0, quick=True, batch=0)
+
+
+# -- choice rule ------------------------------------------------------------------------
+def _result(sur, name, params, label, auc, ttb, unit_aucs):
+    return {"surrogate": sur, "acquisition": {"name": name, "params": params},
+            "label": label, "error": None, "auc": {"median": auc},
+            "trials_to_best5": {"median": ttb},
+            "runs": [{"unit": u, "auc": a} for u, a in unit_aucs.items()]}
+
+
+def test_choose_setting_rule_on_a_hand_made_backtest():
+    # hand-computed: scores are means of the two medians
+    #   EI: (0.20 + 0.10)/2 = 0.15, UCB: (0.20 + 0.10)/2 = 0.15 (tie, fewer trials wins),
+    #   PI: (0.30 + 0.20)/2 = 0.25; random: (0.40 + 0.30)/2 = 0.35
+    rnd = {"auc": {"median": 0.40}, "per_unit_mean_auc": {"c1": 0.40, "c2": 0.40}}
+    rnd_s = {"auc": {"median": 0.30}, "per_unit_mean_auc": {"f0": 0.30}}
+    bt = {
+        "replay": {"results": [
+            _result("gp", "ei", {"xi": 0.01}, "EI xi=0.01", 0.20, 9.0, {"c1": 0.1, "c2": 0.5}),
+            _result("gp", "ucb", {"beta": 4.0}, "UCB beta=4", 0.20, 7.0, {"c1": 0.1, "c2": 0.3}),
+            _result("gp", "pi", {"xi": 0.01}, "PI xi=0.01", 0.30, 5.0, {"c1": 0.3, "c2": 0.3}),
+            _result("forest", "ei", {"xi": 0.01}, "EI xi=0.01", 0.01, 2.0, {"c1": 0.0}),
+        ], "random": rnd},
+        "simulated": {"error": None, "results": [
+            _result("gp", "ei", {"xi": 0.01}, "EI xi=0.01", 0.10, 9.0, {"f0": 0.1}),
+            _result("gp", "ucb", {"beta": 4.0}, "UCB beta=4", 0.10, 9.0, {"f0": 0.1}),
+            _result("gp", "pi", {"xi": 0.01}, "PI xi=0.01", 0.20, 9.0, {"f0": 0.2}),
+            _result("forest", "ei", {"xi": 0.01}, "EI xi=0.01", 0.01, 2.0, {"f0": 0.0}),
+        ], "random": rnd_s},
+    }
+    got = choose_setting(bt, "gp")
+    assert got["acquisition"] == {"name": "ucb", "params": {"beta": 4.0}}
+    assert got["runner_up"]["label"] == "EI xi=0.01"
+    assert got["score"] == pytest.approx(0.15, abs=1e-12)  # float sums only
+    assert got["margin_over_runner_up"] == pytest.approx(0.0, abs=1e-12)
+    assert got["margin_over_random"] == pytest.approx(0.20, abs=1e-12)
+    assert (got["runs_beating_random"], got["runs"]) == (3, 3)
+    assert any("practically tied" in r for r in got["reasons"])
+    # another surrogate's results never leak into this surrogate's choice
+    assert choose_setting(bt, "forest")["label"] == "EI xi=0.01"
+    assert choose_setting(bt, "dngo")["acquisition"] is None
