@@ -354,6 +354,9 @@ def load_trials(path, objective: str | None = None, direction: str | None = None
     UsageError
         When the arguments contradict each other or the space file.
     """
+    # Header names are stripped when read, so stray spaces in a name given here are too.
+    objective, campaign, order, status = (None if c is None else str(c).strip()
+                                          for c in (objective, campaign, order, status))
     spec, given_space = _resolve_space_arg(space)
     objective, direction, units = _resolve_objective(objective, direction, spec)
     path = Path(path)
@@ -424,7 +427,7 @@ def _suggest(name, columns) -> str:
     lower = {c.lower(): c for c in columns}
     if name.lower() in lower:
         return f" (did you mean '{lower[name.lower()]}'?)"
-    near = difflib.get_close_matches(name, list(columns), n=1, cutoff=0.6)
+    near = difflib.get_close_matches(name, list(columns), n=1, cutoff=0.5)
     return f" (did you mean '{near[0]}'?)" if near else ""
 
 
@@ -1102,7 +1105,7 @@ class _Builder:
             values = frame[p.name]
             present = values.notna().to_numpy()
             if p.is_numeric:
-                present &= np.isfinite(pd.to_numeric(values, errors="coerce").to_numpy(float))
+                present = present & np.isfinite(pd.to_numeric(values, errors="coerce").to_numpy(float))
             inside = p.contains(values.to_numpy())
             bad = np.flatnonzero(present & ~inside)
             if bad.size:
