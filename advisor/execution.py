@@ -82,7 +82,7 @@ class Executor:
             futures = [client.submit(fn, *t, pure=False) for t in tasks]
             index = {f.key: i for i, f in enumerate(futures)}
             out: list = [None] * len(tasks)
-            for done, fut in enumerate(as_completed(futures), start=1):
+            for done, fut in enumerate(as_completed(futures, loop=client.loop), start=1):
                 out[index[fut.key]] = fut.result()
                 self._tick(done, len(tasks), label)
         return out
