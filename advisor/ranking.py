@@ -8,8 +8,9 @@ The rule, in order (also in the README):
 2. **Guard rails.**  A working model must (a) cover: its held-out 90% interval covers
    between 80% and 97% of the held-out trials, either as it is or after the variance
    scale fitted on the other folds (the recommendation then says to scale); and (b)
-   order: the Spearman correlation of its predicted means with the held-out objective
-   is positive with a 95% bootstrap interval above zero.  Models that fail a guard rail
+   order: the Spearman correlation of its predicted means with the held-out objective,
+   taken within each fold and averaged, is positive with a 95% bootstrap interval above
+   zero.  Models that fail a guard rail
    are ranked after those that pass.
 3. **Primary score.**  Among the models passing the guard rails, the leader is the one
    with the lowest mean held-out CRPS (a strictly proper score, Gneiting & Raftery
@@ -60,18 +61,35 @@ class Ranking:
     method: str = ""
 
 
-def _spearman_lower(mean, y, idx) -> float:
-    """Lower 2.5% bootstrap bound of Spearman(mean, y) (ranks recomputed per replicate)."""
+def _spearman_lower(mean, y, folds, idx) -> float:
+    """Lower 2.5% bootstrap bound of the within-fold Spearman correlation of mean and y.
+
+    Ranks are taken within each fold and the fold correlations averaged (weighted by
+    fold size), so a model cannot pass by shifting its level between folds — a constant
+    predictor trained on different data per fold would otherwise correlate with a
+    campaign drifting toward its optimum.  A fold where the model's mean is constant
+    counts as zero correlation.
+    """
     sub = idx[:400]
-    a = stats.rankdata(mean[sub], axis=1)
-    b = stats.rankdata(y[sub], axis=1)
-    a -= a.mean(axis=1, keepdims=True)
-    b -= b.mean(axis=1, keepdims=True)
-    denom = np.sqrt((a**2).sum(axis=1) * (b**2).sum(axis=1))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        rho = (a * b).sum(axis=1) / denom
-    rho = np.where(np.isfinite(rho), rho, 0.0)
-    return float(np.quantile(rho, 0.025))
+    total = np.zeros(len(sub))
+    weight = 0
+    for f in np.unique(folds):
+        cols = np.flatnonzero(folds == f)
+        if len(cols) < 3:
+            continue
+        block = sub[:, cols]
+        a = stats.rankdata(mean[block], axis=1)
+        b = stats.rankdata(y[block], axis=1)
+        a -= a.mean(axis=1, keepdims=True)
+        b -= b.mean(axis=1, keepdims=True)
+        denom = np.sqrt((a**2).sum(axis=1) * (b**2).sum(axis=1))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rho = (a * b).sum(axis=1) / denom
+        total += len(cols) * np.where(np.isfinite(rho), rho, 0.0)
+        weight += len(cols)
+    if weight == 0:
+        return -1.0
+    return float(np.quantile(total / weight, 0.025))
 
 
 def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
@@ -121,7 +139,7 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
             std = p["std"] * (s if use_scale[n] else 1.0)
             crps_pts[n] = gaussian_crps(p["y"], p["mean"], std)
             cover_ok = raw_ok or scaled_ok
-            rho_lo = _spearman_lower(p["mean"], p["y"], idx) if np.ptp(p["mean"]) > 0 else -1.0
+            rho_lo = _spearman_lower(p["mean"], p["y"], p["fold"], idx)
             order_ok = rho_lo > 0
             rows[n] = {"surrogate": n, "status": "ok", "crps": float(crps_pts[n].mean()),
                        "coverage_90": cov_s if use_scale[n] else cov_raw,

@@ -52,6 +52,7 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
                   _f(m.get("calibration_error"), "{:.3f}"), _f(m.get("spearman"), "{:.2f}"),
                   _f(comp.get("p_best"), "{:.2f}"), _f(m.get("fit_seconds"), "{:.2f}"), note)
     con.print(t)
+    _print_noise(con, d)
     rec = d["recommendation"]
     acq = rec["acquisition"]
     params = ", ".join(f"{k}={v}" for k, v in acq.get("params", {}).items())
@@ -68,3 +69,21 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
     con.print(f"[dim]{CAUTION}[/]")
     for w in written:
         con.print(f"wrote {w}")
+
+
+def _print_noise(con, d) -> None:
+    """Replicate-based noise estimate beside each model's fitted noise level."""
+    fitted = {k: v for k, v in (d.get("noise") or {}).get("fitted", {}).items() if v is not None}
+    rep = (d.get("noise") or {}).get("replicates")
+    if not fitted and not rep:
+        return
+    parts = []
+    if rep and rep.get("noise_std") is not None:
+        lo, hi = (rep.get("noise_std_interval") or [None, None])[:2]
+        ci = f" (95% {lo:.3g}–{hi:.3g})" if lo is not None and hi is not None else ""
+        parts.append(f"from replicates {rep['noise_std']:.3g}{ci}")
+    else:
+        parts.append("no replicated settings")
+    if fitted:
+        parts.append("fitted: " + ", ".join(f"{k} {v:.3g}" for k, v in fitted.items()))
+    con.print("noise std: " + "; ".join(parts))
