@@ -319,8 +319,9 @@ def predicted_observed_figure(predictions, names: Sequence[str], sign: float = 1
         inside = np.abs(p["y"] - p["mean"]) <= half
         ax.errorbar(yo, mu, yerr=half, fmt="none", ecolor=st.color, alpha=0.45,
                     elinewidth=0.6)
-        ax.plot(yo[inside], mu[inside], linestyle="none", marker=st.marker, markersize=2.6,
-                color=st.color, label=f"inside {int(level * 100)}% interval")
+        ax.plot(yo[inside], mu[inside], linestyle="none", marker=st.marker, markersize=2.8,
+                color=st.color, markeredgecolor="#222222", markeredgewidth=0.3,
+                label=f"inside {int(level * 100)}% interval")
         ax.plot(yo[~inside], mu[~inside], linestyle="none", marker=st.marker,
                 markersize=3.2, markerfacecolor="white", markeredgecolor="#000000",
                 markeredgewidth=0.6, label="outside")
@@ -329,11 +330,9 @@ def predicted_observed_figure(predictions, names: Sequence[str], sign: float = 1
         ax.set_xlim(lo_all - pad, hi_all + pad)
         ax.set_title(_short(n, 30), fontsize=_TEXT + 0.5)
         ax.set_xlabel(label_obs)
+        ax.set_ylabel(label_pred)
         if i == 0:
-            ax.set_ylabel(label_pred)
             _legend(ax, loc="upper left")
-        else:
-            ax.set_ylabel(" ")
     return fig
 
 

@@ -119,7 +119,7 @@ _FONT, _BOLD, _ITALIC, _MONO = _register_fonts()
 def _styles() -> dict:
     base = getSampleStyleSheet()
     body = ParagraphStyle("body", parent=base["BodyText"], fontName=_FONT,
-                          fontSize=9, leading=11.5, textColor=_INK, spaceAfter=4)
+                          fontSize=8.6, leading=11.2, textColor=_INK, spaceAfter=4)
     return {
         "title": ParagraphStyle("title", parent=body, fontName=_BOLD,
                                 fontSize=17, leading=21, spaceAfter=2),
@@ -245,6 +245,15 @@ def _heading(i: int) -> list:
 
 def _short(name: str) -> str:
     return name.split(":")[-1] if ":" in str(name) else str(name)
+
+
+def _name(name) -> str:
+    """A model name for a narrow cell: a user model's class first, its module below."""
+    name = str(name)
+    if ":" not in name:
+        return _e(name)
+    mod, cls = name.rsplit(":", 1)
+    return f"{_e(cls)}<br/><font size=5.8 color='#555555'>{_e(mod)}</font>"
 
 
 # ======================================================================================
@@ -433,7 +442,7 @@ def _parameter_table(space) -> Table | Paragraph:
         rows.append(_cells([_e(p.get("name")), _e(p.get("kind")), _e(shown),
                             _e(p.get("scale", "")), _e(p.get("source", "")),
                             _e(p.get("note", ""))]))
-    w = [38 * mm, 18 * mm, 42 * mm, 13 * mm, 16 * mm]
+    w = [46 * mm, 17 * mm, 34 * mm, 12 * mm, 15 * mm]
     return _table(rows, w + [_TEXT_W - sum(w)])
 
 
@@ -497,7 +506,7 @@ def _noise_block(v: _View) -> list:
         f = fitted.get(n)
         ratio = (float(f) / float(rep["noise_std"]) if rep and _finite(f)
                  and _finite(rep.get("noise_std")) and float(rep["noise_std"]) > 0 else None)
-        rows.append(_cells([_e(n), _num(f) if _finite(f) else "not reported by the model",
+        rows.append(_cells([_name(n), _num(f) if _finite(f) else "not reported by the model",
                             _num(ratio) if ratio is not None else "n/a"]))
     out.append(_table(rows, [60 * mm, 45 * mm, 45 * mm]))
     return out
@@ -549,7 +558,7 @@ def _metric_cell(e, key, bold: bool) -> str:
     iv = (e.get("intervals") or {}).get(key)
     if iv and all(_finite(x) for x in iv):
         lo, hi = (_pct(iv[0]), _pct(iv[1])) if pct else (_num(iv[0]), _num(iv[1]))
-        text += f"<br/><font size=5.8 color='#555555'>{lo} to {hi}</font>"
+        text += f"<br/><font size=5.8 color='#555555'>{lo} – {hi}</font>"
     return text
 
 
@@ -559,7 +568,7 @@ def _metrics_table(v: _View, cols, first_w: float):
     spans, extra = [], []
     for e in v.ranking:
         n = e["surrogate"]
-        label = f"{e.get('rank', '')}. {_e(n)}"
+        label = f"{e.get('rank', '')}. {_name(n)}"
         if e.get("status") != "ok":
             errs = e.get("failures") or []
             msg = "; ".join(f"fold {f.get('fold')}: {f.get('error')}" for f in errs[:3])
@@ -626,23 +635,26 @@ def _evidence_section(v: _View) -> list:
 
 
 def _recalibration_table(v: _View) -> list:
-    head = ["surrogate", "variance scale", "cov. 90% raw", "scaled", "isotonic",
-            "cal. error raw", "scaled", "isotonic", "CRPS raw", "scaled"]
-    rows = [_cells(head, "cellhead")]
+    top = ["", "", "coverage of the 90% interval", "", "", "calibration error", "", "",
+           "CRPS", ""]
+    head = ["surrogate", "variance scale", "raw", "scaled", "isotonic", "raw", "scaled",
+            "isotonic", "raw", "scaled"]
+    rows = [_cells(top, "cellhead"), _cells(head, "cellhead")]
     for n in v.ok:
         rc = (v.entry(n) or {}).get("recalibration")
         if not rc:
             continue
         b, s, i = (rc.get(k) or {} for k in ("before", "after_scale", "after_isotonic"))
-        rows.append(_cells([_e(n), _num(rc.get("scale")), _pct(b.get("coverage_90")),
+        rows.append(_cells([_name(n), _num(rc.get("scale")), _pct(b.get("coverage_90")),
                             _pct(s.get("coverage_90")), _pct(i.get("coverage_90")),
                             _num(b.get("calibration_error")), _num(s.get("calibration_error")),
                             _num(i.get("calibration_error")), _num(b.get("crps")),
                             _num(s.get("crps"))]))
-    if len(rows) == 1:
+    if len(rows) == 2:
         return [_p("Recalibration did not run.")]
     w = (_TEXT_W - 38 * mm) / (len(head) - 1)
-    return [_table(rows, [38 * mm] + [w] * (len(head) - 1)),
+    spans = [((2, 0), (4, 0)), ((5, 0), (7, 0)), ((8, 0), (9, 0))]
+    return [_table(rows, [38 * mm] + [w] * (len(head) - 1), header_rows=2, spans=spans),
             _p("Each model's variance scale and isotonic map are fitted on the other folds "
                "and applied to the held-out one (cross-fitted), so the 'after' columns are "
                "honest held-out scores. A scale below 1 means the raw intervals were too "
@@ -656,14 +668,15 @@ def _backtest_section(v: _View) -> list:
     from .figures import backtest_figure
 
     bt = v.backtest
-    story = _heading(3)
+    story = []
     if not bt:
+        story += _heading(3)
         story.append(_p("The acquisition backtest did not run for this report; the "
                         "acquisition setting on page one is a default."))
         return story
     choice = bt.get("choice") or {}
     cfg = bt.get("config") or {}
-    story.append(_p(
+    intro = (_p(
         "Each surrogate and acquisition setting was replayed on the logged campaigns "
         "(picking only trials that were actually run) and run on simulated campaigns "
         "drawn from a Gaussian-process posterior of the log, from the same starting "
@@ -671,9 +684,10 @@ def _backtest_section(v: _View) -> list:
         f"{cfg.get('budget', 'n/a')}). Curves show normalized regret of the best so far: "
         "0 is the pool's best value, 1 its worst; line = median, band = interquartile "
         "range."))
-    story.append(_figure_block(backtest_figure(bt, v.styles),
-                               "Each surrogate with the setting the backtest chose for it; "
-                               "dotted black with grey band: random order."))
+    fig = backtest_figure(bt, v.styles)
+    story.append(KeepTogether(_heading(3) + [intro, _image(fig), _p(
+        "Each surrogate with the setting the backtest chose for it; dotted black with grey "
+        "band: random order; dashed grey: the campaigns' actual order.", "caption")]))
     for r in choice.get("reasons") or []:
         story.append(_p("• " + _e(r), "small"))
     story.append(Paragraph("Trials needed to reach the best 5%", _S["h2"]))
@@ -713,7 +727,7 @@ def _ttb_table(v: _View, bt) -> list:
                 keys.append(k)
     chosen = {(n, (c or {}).get("label")) for n, c in (bt.get("per_surrogate") or {}).items()}
     for k in keys:
-        cells = [_e(k[0]), _e(k[1]) + (" <b>(chosen)</b>" if k in chosen else "")]
+        cells = [_name(k[0]), _e(k[1]) + (" <b>(chosen)</b>" if k in chosen else "")]
         for p in parts:
             res = next((r for r in bt[p]["results"]
                         if (r.get("surrogate"), r.get("label")) == k), None)
@@ -777,13 +791,13 @@ def _next_section(v: _View) -> list:
             _box(_planning_caution(), "Before running these", _TEXT_W / 2 - 6)))
     else:
         story.append(_p("No proposals were requested for this report."))
-    story.append(Paragraph("More trials and their cost", _S["h2"]))
     left = [_image(learning_curve_figure(learn, v.objective_label, v.styles),
                    _TEXT_W / 2 - 4),
             _p(_e((learn or {}).get("reading") or "Learning curve did not run."), "caption")]
     right = [_image(cost_figure(cost, v.styles), _TEXT_W / 2 - 4),
              _p(_e((cost or {}).get("method") or "Cost projection did not run."), "caption")]
-    story.append(_side_by_side(left, right))
+    story.append(KeepTogether([Paragraph("More trials and their cost", _S["h2"]),
+                               _side_by_side(left, right)]))
     if cost:
         story += _cost_table(cost)
     return story
@@ -816,7 +830,7 @@ def _proposal_tables(v: _View, props) -> list:
     params = [p for p in (v.d.get("input") or {}).get("parameters") or [] if p in props]
     n = len(props)
     out = []
-    per = 8
+    per = 10
     for start in range(0, n, per):
         idx = list(range(start, min(n, start + per)))
         head = ["parameter"] + [f"#{i + 1}" for i in idx]
@@ -847,10 +861,10 @@ def _cost_table(cost) -> list:
                     "over limit"], "cellhead")]
     for n, e in (cost.get("surrogates") or {}).items():
         if e.get("error"):
-            rows.append(_cells([_e(n), f"<i>error</i>: {_e(e['error'])}", "", "", ""]))
+            rows.append(_cells([_name(n), f"<i>error</i>: {_e(e['error'])}", "", "", ""]))
             continue
         fit = (e.get("fit_seconds") or [None])[-1]
-        rows.append(_cells([_e(n), _num(fit), _num(e.get("fit_seconds_exponent")),
+        rows.append(_cells([_name(n), _num(fit), _num(e.get("fit_seconds_exponent")),
                             _num(e.get("projected_seconds_per_iteration")),
                             "yes" if e.get("over_limit") else "no"]))
     return [_table(rows, [45 * mm, 28 * mm, 32 * mm, 45 * mm, _TEXT_W - 150 * mm]),
@@ -864,6 +878,10 @@ def _doc_summary(fn) -> str:
     text = (fn.__doc__ or "").strip().split("\n\n")[0]
     text = re.sub(r":math:`([^`]*)`", r"\1", text)
     text = re.sub(r":func:`~?([^`]*)`", r"\1", text)
+    for key, who in (("[KFE2018]", "Kuleshov et al. (2018)"),
+                     ("[GRWG2005]", "Gneiting et al. (2005)"),
+                     ("[GR2007]", "Gneiting & Raftery (2007)")):
+        text = text.replace(key, who)
     return " ".join(text.replace("``", "").split())
 
 
