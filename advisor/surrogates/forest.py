@@ -1,0 +1,142 @@
+"""Random-forest surrogate whose predictive variance follows the law of total variance.
+
+Each tree ``t`` puts a test point ``x`` in one leaf, whose training targets have mean
+``mu_t(x)`` and variance ``s2_t(x)``.  Treating the forest as an equal-weight mixture of
+the trees' leaf distributions (Hutter, Xu, Hoos & Leyton-Brown 2014, §4.3.2)::
+
+    mean(x) = 1/T sum_t mu_t(x)
+    var(x)  = 1/T sum_t (s2_t(x) + mu_t(x)^2) - mean(x)^2
+
+i.e. the mean of the within-leaf variances plus the variance of the leaf means (as in
+[HXHL2014, §4.3.2], where each leaf stores the empirical mean and variance of its
+training targets and the forest's prediction is read as a mixture).  The within-leaf variance is ``tree_.impurity`` of the leaf, which for
+``criterion="squared_error"`` is the (bootstrap-weighted) mean squared deviation of the
+leaf's training targets from the leaf mean (ddof = 0); ``tests/test_forest_baseline.py``
+recomputes it from the training data via ``apply``.  ``min_samples_leaf=3`` (our
+choice) keeps every leaf with a spread; a floor of ``(1e-3 * std(y))^2`` (our choice)
+keeps the variance positive where every tree's leaf is pure.
+
+Trees are invariant to affine rescaling of inputs and outputs, so the data are not
+standardized.  Categorical settings come as ordinal codes (``input_encoding =
+"ordinal"``), which axis-aligned splits separate natively.
+
+Our choices, not from the paper: scikit-learn's ``RandomForestRegressor`` with bootstrap
+samples, 300 trees (100 quick), ``max_features=1.0``.
+
+References
+----------
+.. [HXHL2014] F. Hutter, L. Xu, H. H. Hoos and K. Leyton-Brown, "Algorithm runtime
+   prediction: Methods & evaluation", Artificial Intelligence 206, 79-111, 2014, §4.3.2.
+.. [B2001] L. Breiman, "Random forests", Machine Learning 45, 5-32, 2001.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from sklearn.ensemble import RandomForestRegressor
+
+from .base import check_fit_inputs
+
+__all__ = ["RandomForestSurrogate", "total_variance_moments"]
+
+#: Trees per forest (thorough, quick).
+N_TREES = {False: 300, True: 100}
+
+
+def total_variance_moments(leaf_means, leaf_vars):
+    """Mean and variance of an equal-weight mixture of per-tree leaf distributions.
+
+    Parameters
+    ----------
+    leaf_means, leaf_vars : (T, k) arrays
+        Leaf mean and within-leaf variance of each of ``T`` trees at ``k`` points.
+
+    Returns
+    -------
+    mean, var : (k,) arrays
+        ``mean = 1/T sum_t mu_t`` and ``var = 1/T sum_t (s2_t + mu_t^2) - mean^2``
+        (law of total variance), clipped at 0 against rounding.
+    """
+    leaf_means = np.asarray(leaf_means, dtype=float)
+    leaf_vars = np.asarray(leaf_vars, dtype=float)
+    if leaf_means.shape != leaf_vars.shape or leaf_means.ndim != 2:
+        raise ValueError(f"leaf_means and leaf_vars must be equal (T, k) arrays, got "
+                         f"{leaf_means.shape} and {leaf_vars.shape}")
+    mean = leaf_means.mean(0)
+    # written as within + between, which loses less to cancellation than E[m^2] - E[m]^2
+    var = leaf_vars.mean(0) + ((leaf_means - mean) ** 2).mean(0)
+    return mean, np.maximum(var, 0.0)
+
+
+class RandomForestSurrogate:
+    """Random forest with mixture (law of total variance) predictive uncertainty.
+
+    Parameters
+    ----------
+    seed : int
+        Seeds the bootstrap samples and feature draws.
+    quick : bool
+        Fewer trees (``N_TREES``).
+    n_estimators : int, optional
+        Overrides the budget's tree count.
+    min_samples_leaf : int
+        Smallest leaf (default 3, so leaves have a spread).
+    max_features : float, int or str
+        Passed to scikit-learn.
+    var_floor : float
+        Variance floor as a fraction of the training variance.
+
+    Attributes
+    ----------
+    forest_ : RandomForestRegressor
+    leaf_mean_, leaf_var_ : list of (n_nodes,) arrays
+        Per tree, the training-target mean and variance at each node (used at leaves).
+    feature_importances_ : (d,) array
+        Impurity-based importances from scikit-learn.
+    info_ : dict
+    """
+
+    input_encoding = "ordinal"
+
+    def __init__(self, seed=0, quick=False, *, n_estimators=None, min_samples_leaf=3,
+                 max_features=1.0, var_floor=1e-6):
+        self.seed = seed
+        self.quick = quick
+        self.n_estimators = n_estimators
+        self.min_samples_leaf = min_samples_leaf
+        self.max_features = max_features
+        self.var_floor = var_floor
+
+    def fit(self, X, y):
+        X, y = check_fit_inputs(X, y)
+        n_trees = N_TREES[bool(self.quick)] if self.n_estimators is None else int(self.n_estimators)
+        self.forest_ = RandomForestRegressor(
+            n_estimators=n_trees, criterion="squared_error",
+            min_samples_leaf=self.min_samples_leaf, max_features=self.max_features,
+            bootstrap=True, random_state=self.seed, n_jobs=1).fit(X, y)
+        # node value = weighted mean of the node's bootstrap targets; impurity = their
+        # weighted mean squared deviation (squared_error criterion)
+        self.leaf_mean_ = [t.tree_.value[:, 0, 0].copy() for t in self.forest_.estimators_]
+        self.leaf_var_ = [t.tree_.impurity.copy() for t in self.forest_.estimators_]
+        self._floor = self.var_floor * max(float(y.var()), 1e-300)
+        self.info_ = {"n_trees": n_trees, "min_samples_leaf": self.min_samples_leaf,
+                      "variance": "law of total variance over trees"}
+        return self
+
+    def leaf_moments(self, X):
+        """Per-tree leaf means and variances at ``X``: two (T, k) arrays."""
+        X = np.asarray(X, dtype=float)
+        if X.ndim != 2:
+            raise ValueError(f"X must be 2-D, got shape {X.shape}")
+        leaves = self.forest_.apply(X)                     # (k, T) leaf ids
+        means = np.array([m[leaves[:, t]] for t, m in enumerate(self.leaf_mean_)])
+        vars_ = np.array([v[leaves[:, t]] for t, v in enumerate(self.leaf_var_)])
+        return means, vars_
+
+    def predict(self, X):
+        mean, var = total_variance_moments(*self.leaf_moments(X))
+        return mean, np.sqrt(var + self._floor)
+
+    @property
+    def feature_importances_(self):
+        return self.forest_.feature_importances_
