@@ -129,9 +129,9 @@ class TrialTable:
     failures : list of dict
         ``{"line", "campaign", "reason"}`` for each failed row.
     notes : list of str
-        Everything the loader decided on the user's behalf: how the file was read,
-        columns set aside, the space inference summary (``space.notes`` is the subset
-        about the space), failures and replicates.  Print these, not ``space.notes``.
+        What the loader decided on the user's behalf about the file and the rows: how
+        it was read, failures, replicates.  Decisions about columns (set aside, dropped
+        as constant) are in ``space.notes``; :attr:`all_notes` joins the two.
     units : str
         The objective's unit, when a space file gives it.
     read_info : dict
@@ -153,6 +153,11 @@ class TrialTable:
     notes: list[str] = field(default_factory=list)
     units: str = ""
     read_info: dict = field(default_factory=dict)
+
+    @property
+    def all_notes(self) -> list[str]:
+        """``notes`` followed by ``space.notes`` (what a report should print)."""
+        return list(self.notes) + list(self.space.notes)
 
     # -- views on the successful trials ---------------------------------------------
     @property
@@ -497,7 +502,8 @@ def _decode(path: Path, data: bytes) -> tuple[str, str, list[str]]:
                             "Windows-1252, re-save as UTF-8 if any label looks wrong"]
 
 
-_MAGIC = [(b"PK\x03\x04", "a zip archive (an .xlsx workbook?)", "give it the .xlsx extension or export CSV"),
+_MAGIC = [(b"PK\x03\x04", "a zip archive (an .xlsx workbook?)",
+           "give it the .xlsx extension or export CSV"),
           (b"PAR1", "a Parquet file", "give it the .parquet extension"),
           (b"\xd0\xcf\x11\xe0", "an old-style Office file (.xls?)", "save it as .xlsx or CSV"),
           (b"%PDF", "a PDF document", "export the trial table as CSV"),
@@ -783,7 +789,8 @@ def _choose_params(raw: _Raw, params, reserved, spec: SpaceFile | None,
     for p in params or ():
         if p in reserved:
             raise UsageError(f"column '{p}' cannot be both a parameter and the "
-                             f"{_role_of(p, reserved)} column")
+                             "objective, campaign, order or status column",
+                             fix="leave it out of the parameter list")
         if p not in columns:
             raise _no_column("parameter", p, columns, path)
     if spec is not None:
@@ -814,10 +821,6 @@ def _choose_params(raw: _Raw, params, reserved, spec: SpaceFile | None,
                          "([space] others = \"ignore\"): " + ", ".join(ignored))
         return [c for c in columns if c in named], named, notes
     return [c for c in columns if c not in reserved], named, notes
-
-
-def _role_of(col, reserved):
-    return "objective/campaign/order/status"
 
 
 class _Builder:
@@ -875,7 +878,7 @@ class _Builder:
                            sha256=self.raw.sha256, rows_read=self.n, failures=failures,
                            units=units,
                            read_info=dict(self.raw.info, decimal=dict(self.decimals)))
-        table.notes = self.notes + list(space.notes) + _summary_notes(table)
+        table.notes = self.notes + _summary_notes(table)
         return table
 
     # -- role columns ----------------------------------------------------------------
@@ -1105,7 +1108,8 @@ class _Builder:
             values = frame[p.name]
             present = values.notna().to_numpy()
             if p.is_numeric:
-                present = present & np.isfinite(pd.to_numeric(values, errors="coerce").to_numpy(float))
+                x = pd.to_numeric(values, errors="coerce").to_numpy(float)
+                present = present & np.isfinite(x)
             inside = p.contains(values.to_numpy())
             bad = np.flatnonzero(present & ~inside)
             if bad.size:

@@ -193,7 +193,7 @@ class Parameter:
                    note=d.get("note", ""))
 
     def describe(self) -> str:
-        """Short human text: ``integer 1..12``, ``continuous 1e-05..0.1 (log)``, ``categorical {a, b}``."""
+        """Short text: ``integer 1..12``, ``continuous 1e-05..0.1 (log)``, ``categorical {a, b}``."""
         if self.kind == "categorical":
             return "categorical {" + ", ".join(self.levels) + "}"
         rng = f"{_fmt(self.low)}..{_fmt(self.high)}"

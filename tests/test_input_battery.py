@@ -17,7 +17,6 @@ from __future__ import annotations
 import codecs
 import hashlib
 import io
-import sys
 import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -237,14 +236,14 @@ def _ok_cases() -> list[Case]:
              check=lambda t: t.space["x1"].is_numeric and np.isfinite(t.y).all()),
         Case("cp1252 labels", cp1252, OBJ, expect="ok",
              check=lambda t: "Ä1" in t.space["cat"].levels and
-             any("Windows-1252" in n for n in t.notes)),
+             any("Windows-1252" in n for n in t.all_notes)),
         Case("utf-16 with BOM", _csv(rows).encode("utf-16"), OBJ, expect="ok",
              check=lambda t: t.n_used == 12),
         Case("trailing delimiter on every line", trailing.encode(), OBJ, expect="ok",
              check=lambda t: t.params == ["x1", "x2", "cat"]),
         Case("saved pandas index", idx_rows.encode(), OBJ, expect="ok",
              check=lambda t: t.params == ["x1", "x2", "cat"] and
-             any("row numbers" in n for n in t.notes)),
+             any("row numbers" in n for n in t.all_notes)),
         Case("missing parameter and text objective", lines_missing.encode(), OBJ,
              expect="ok", check=lambda t: t.n_used == 10 and
              [f["line"] for f in t.failures] == [4, 6] and
@@ -256,10 +255,10 @@ def _ok_cases() -> list[Case]:
              OBJ + ["--status", "outcome", "--success", "ok"], expect="ok",
              check=lambda t: t.n_used == 9 and len(t.failures) == 3),
         Case("free-text notes ignored", notes_rows.encode(), OBJ, expect="ok",
-             check=lambda t: "notes" not in t.params and any("notes" in n for n in t.notes)),
+             check=lambda t: "notes" not in t.params and any("notes" in n for n in t.all_notes)),
         Case("constant column dropped", const_rows.encode(), OBJ, expect="ok",
              check=lambda t: "machine" not in t.params and
-             any("constant" in n for n in t.notes)),
+             any("constant" in n for n in t.all_notes)),
         Case("yes/no stays categorical, few integers stay integer", yes_no.encode(), OBJ,
              expect="ok", check=lambda t: t.space["coated"].kind == "categorical" and
              t.space["x2"].kind == "integer" and t.space["cat"].kind == "categorical"),

@@ -81,7 +81,7 @@ def test_windows_1252_fallback_is_noted(tmp_path):
     t = load_trials(f, "y")
     assert "Übung" in t.space["lvl"].levels
     assert t.read_info["encoding"] == "cp1252"
-    assert any("Windows-1252" in n for n in t.notes)
+    assert any("Windows-1252" in n for n in t.all_notes)
 
 
 def test_input_is_never_written(tmp_path):
@@ -101,7 +101,7 @@ def test_notes_column_is_ignored_unless_named(tmp_path):
     assert "notes" not in load_trials(f, "y").params
     t = load_trials(f, "y", params=["x", "notes"])
     assert t.space["notes"].kind == "categorical"
-    assert any("not in the parameter list" in n for n in t.notes)
+    assert any("not in the parameter list" in n for n in t.all_notes)
 
 
 def test_mostly_text_column_with_some_numbers_is_categorical_with_a_note(tmp_path):
@@ -111,7 +111,7 @@ def test_mostly_text_column_with_some_numbers_is_categorical_with_a_note(tmp_pat
     df.to_csv(f, index=False)
     t = load_trials(f, "y")
     assert t.space["grade"].kind == "categorical"
-    assert any("numeric-looking" in n for n in t.notes)
+    assert any("numeric-looking" in n for n in t.all_notes)
 
 
 def test_space_file_can_make_a_numeric_column_categorical(tmp_path):

@@ -71,7 +71,7 @@ def test_inferred_space_matches_data_sheet(stem):
             assert list(p.levels) == sorted(levels), name
     ignored = [c for c, r in sheet.items() if r["role"] == "ignored"]
     for c in ignored:
-        assert any(f"'{c}' ignored" in n for n in table.notes)
+        assert any(f"'{c}' ignored" in n for n in table.all_notes)
     objective = [c for c, r in sheet.items() if r["role"].startswith("objective")]
     assert objective == [RUNS[stem]["objective"]]
     assert table.direction in sheet[objective[0]]["role"]
@@ -129,4 +129,4 @@ def test_space_file_example_loads():
     assert table.objective == "val_mape" and table.units == "%"
     assert table.space["hidden_units"].log and table.space["hidden_units"].source == "given"
     assert table.space["dropout"].source == "inferred"
-    assert re.search(r"notes", " ".join(table.notes))
+    assert re.search(r"notes", " ".join(table.all_notes))
