@@ -528,15 +528,19 @@ def _read_csv(path: Path, data: bytes):
     if not text.strip():
         raise InputError("is empty", path=path,
                          fix="write a header row and one row per trial")
+    text, n_comments = _drop_leading_comments(text)
+    if n_comments:
+        notes = notes + [f"skipped {n_comments} comment lines (starting with #) above "
+                         "the header"]
     delimiter = _sniff_delimiter(text)
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter,
                         skipinitialspace=True, strict=False)
     rows, lines = [], []
-    prev = 0
+    prev = n_comments
     try:
         for row in reader:
             start = prev + 1
-            prev = reader.line_num
+            prev = n_comments + reader.line_num
             if not row or all(not c.strip() for c in row):
                 continue
             rows.append(row)
@@ -551,6 +555,17 @@ def _read_csv(path: Path, data: bytes):
             "delimiter": {"\t": "tab"}.get(delimiter, delimiter),
             "header_line": lines[0]}
     return rows[0], rows[1:], lines[1:], notes, info
+
+
+def _drop_leading_comments(text: str) -> tuple[str, int]:
+    """Remove ``#`` lines (and blank lines) above the header; count removed lines."""
+    lines = text.splitlines(keepends=True)
+    k = 0
+    while k < len(lines) and (lines[k].lstrip().startswith("#") or not lines[k].strip()):
+        k += 1
+    if not any(ln.lstrip().startswith("#") for ln in lines[:k]):
+        return text, 0
+    return "".join(lines[k:]), k
 
 
 def _sniff_delimiter(text: str) -> str:
@@ -698,14 +713,23 @@ def _is_missing_token(c: str) -> bool:
 
 def _column_decimal(col: Sequence[str]) -> str:
     """``","`` when the column's numbers use decimal commas (and none uses a point)."""
+    col = [c[:-1].rstrip() if c.endswith("%") else c for c in col]
     comma = any(_NUM_COMMA.match(c) and not _NUM_DOT.match(c) for c in col)
     dot = any("." in c and _NUM_DOT.match(c) for c in col)
     return "," if comma and not dot else "."
 
 
+_THOUSANDS = re.compile(r"^[+-]?\d{1,3}(?:,\d{3})+$")
+
+
 def _parse_number(c: str, decimal: str) -> float | None:
-    """A cell as a float (inf allowed), or None when it is not a number."""
+    """A cell as a float (inf allowed), or None when it is not a number.
+
+    A trailing ``%`` is dropped: ``12.5%`` reads as 12.5 (the column stays in percent).
+    """
     s = c.strip()
+    if s.endswith("%"):
+        s = s[:-1].rstrip()
     low = s.lower()
     if low in _INF_TOKENS:
         return -math.inf if low.startswith("-") else math.inf
@@ -1047,9 +1071,21 @@ class _Builder:
         return out
 
     def _record_decimal(self, name, num: _NumericColumn):
+        cells = self.raw.cells[name]
+        if num.decimal == "," and self.raw.info.get("delimiter") == ",":
+            # In a comma-separated file a quoted "1,500" is more likely 1500 than 1.5.
+            commas = [i for i, c in enumerate(cells) if "," in c]
+            if all(_THOUSANDS.match(cells[i]) for i in commas):
+                i = commas[0]
+                raise InputError(f"'{_show(cells[i])}' could be a decimal comma or a "
+                                 "thousands separator", path=self.path,
+                                 row=int(self.raw.lines[i]), column=name,
+                                 fix="write numbers without thousands separators")
         self.decimals[name] = num.decimal
         if num.decimal == ",":
             self.notes.append(f"column '{name}' uses decimal commas")
+        if any(c.endswith("%") for c in cells):
+            self.notes.append(f"column '{name}' has % signs; read as numbers in percent")
 
     def _parameter_failures(self, frame, kept, reasons):
         counts = Counter()

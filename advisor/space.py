@@ -193,7 +193,7 @@ class Parameter:
                    note=d.get("note", ""))
 
     def describe(self) -> str:
-        """Short text: ``integer 1..12``, ``continuous 1e-05..0.1 (log)``, ``categorical {a, b}``."""
+        """Short text: ``integer 1..12``, ``continuous 1e-05..0.1 (log)``, ``categorical {a}``."""
         if self.kind == "categorical":
             return "categorical {" + ", ".join(self.levels) + "}"
         rng = f"{_fmt(self.low)}..{_fmt(self.high)}"
@@ -614,4 +614,4 @@ def _plain(v):
 def _fmt(v: float | None) -> str:
     if v is None:
         return "?"
-    return f"{v:.4g}"
+    return f"{v + 0.0:.4g}"  # + 0.0 turns -0.0 into 0.0

@@ -172,6 +172,14 @@ def _refusals() -> list[Case]:
              _csv([rows[0] + ["run"]] + [r + ["fifth" if i == 4 else str(i + 1)]
                                          for i, r in enumerate(rows[1:])]).encode(),
              OBJ + ["--order", "run"], says=("fifth", "line 6", "column 'run'")),
+        Case("thousands separator or decimal comma?",
+             _csv([r[:1] + [f'"1,{i:03d}"'] + r[2:] if i else r
+                   for i, r in enumerate(rows)]).encode(), OBJ,
+             says=("'1,001'", "thousands separator", "line 2", "column 'x2'")),
+        Case("ragged row below comment lines",
+             b"# exported by the rig\n# units: SI\n" +
+             _csv(_with_row(rows, 2, ["0.5", "2"])).encode(), OBJ,
+             says=("line 5", "2 fields")),
         Case("old xls", b"\xd0\xcf\x11\xe0" + b"\x00" * 100, OBJ, filename="log.xls",
              says=(".xls",)),
         Case("text saved as xlsx", _good(), OBJ, filename="log.xlsx",
@@ -230,6 +238,18 @@ def _ok_cases() -> list[Case]:
         Case("semicolon and decimal comma", _good(sep=";", decimal=","), OBJ, expect="ok",
              check=lambda t: t.read_info["delimiter"] == ";" and
              t.read_info["decimal"]["x1"] == "," and t.space["x1"].kind == "continuous"),
+        Case("quoted decimal commas in a comma file",
+             _csv([[f'"{c.replace(".", ",")}"' if j == 0 and i else c
+                    for j, c in enumerate(r)] for i, r in enumerate(rows)]).encode(),
+             OBJ, expect="ok",
+             check=lambda t: t.read_info["decimal"]["x1"] == "," and
+             t.space["x1"].kind == "continuous" and t.space["x1"].high < 1),
+        Case("comment lines above the header", b"# exported\n\n# by the rig\n" + _good(),
+             OBJ, expect="ok", check=lambda t: t.n_used == 12 and
+             any("comment" in n for n in t.all_notes)),
+        Case("percent signs", _csv([r[:3] + [r[3] + "%"] if i else r
+                                    for i, r in enumerate(rows)]).encode(), OBJ, expect="ok",
+             check=lambda t: t.n_used == 12 and any("%" in n for n in t.all_notes)),
         Case("tab separated", _good(sep="\t"), OBJ, expect="ok",
              check=lambda t: t.read_info["delimiter"] == "tab" and t.n_used == 12),
         Case("tab with decimal comma", _good(sep="\t", decimal=","), OBJ, expect="ok",
