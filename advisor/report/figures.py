@@ -174,7 +174,7 @@ def _short(name: str, width: int = 22) -> str:
     return text if len(text) <= width else text[: width - 1] + "…"
 
 
-def figure_png(fig: Figure, dpi: int = 220) -> bytes:
+def figure_png(fig: Figure, dpi: int = 200) -> bytes:
     """Render ``fig`` to PNG bytes at ``dpi`` and release it."""
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)

@@ -217,7 +217,7 @@ def _box(text: str, title: str = "Caution", width: float = _TEXT_W) -> Table:
 
 
 def _image(fig, width: float = _TEXT_W) -> Image:
-    """Embed a matplotlib figure as a PNG (220 dpi) scaled to ``width`` points."""
+    """Embed a matplotlib figure as a PNG (200 dpi) scaled to ``width`` points."""
     import io
 
     from .figures import figure_png
@@ -399,7 +399,7 @@ def _basis_table(v: _View, inp) -> Table:
         ["Seed", f"{_e(d.get('seed'))}" + (" (quick budget)" if d.get("quick") else "")],
     ]
     return _table([_cells([f"<b>{k}</b>", x]) for k, x in rows], [30 * mm, _TEXT_W - 30 * mm],
-                  header_rows=0 or 1, zebra=False,
+                  zebra=False,
                   extra=[("BACKGROUND", (0, 0), (-1, 0), colors.white),
                          ("LINEBELOW", (0, 0), (-1, -2), 0.25, _RULE)], long=False)
 
@@ -763,34 +763,36 @@ def _next_section(v: _View) -> list:
     from .figures import (cost_figure, learning_curve_figure, proposals_figure,
                           relevance_figure)
 
-    story = _heading(4)
+    story = []
     rel = v.plan_part("relevance", "parameter_relevance")
     learn = v.plan_part("learning_curve", "learning")
     cost = v.plan_part("cost", "cost_projection")
     props = v.proposals()
     if not (rel or learn or cost or props is not None):
-        story.append(_p("The next-campaign plan did not run for this report."))
-        return story
-    story.append(Paragraph("Which parameters matter", _S["h2"]))
-    if rel:
-        story.append(_figure_block(relevance_figure(rel), _e(rel.get("method", ""))))
+        return _heading(4) + [_p("The next-campaign plan did not run for this report.")]
+    if rel:  # the heading travels with the first figure, never alone at a page foot
+        story.append(KeepTogether(_heading(4) + [Paragraph("Which parameters matter", _S["h2"]),
+                                   _image(relevance_figure(rel)),
+                                   _p(_e(rel.get("method", "")), "caption")]))
         story += _freeze_block(rel)
         if rel.get("caution"):
             story.append(_p(_e(rel["caution"]), "small"))
     else:
-        story.append(_p("Parameter relevance did not run."))
-    story.append(Paragraph("Proposed first batch", _S["h2"]))
+        story += _heading(4) + [Paragraph("Which parameters matter", _S["h2"]),
+                  _p("Parameter relevance did not run.")]
     if props is not None:
-        story += _proposal_tables(v, props)
         best = _best_logged(v)
-        story.append(_side_by_side(
+        # One block, so the caution is never a page away from the settings it qualifies.
+        story.append(KeepTogether([Paragraph("Proposed first batch", _S["h2"])]
+                                  + _proposal_tables(v, props) + [_side_by_side(
             [_image(proposals_figure(props, v.objective_label, best, v.direction),
                     _TEXT_W / 2 - 4),
              _p("Predicted mean and 90% interval of each proposal (new observation, "
                 "noise included), against the best logged value.", "caption")],
-            _box(_planning_caution(), "Before running these", _TEXT_W / 2 - 6)))
+            _box(_planning_caution(), "Before running these", _TEXT_W / 2 - 6))]))
     else:
-        story.append(_p("No proposals were requested for this report."))
+        story += [Paragraph("Proposed first batch", _S["h2"]),
+                  _p("No proposals were requested for this report.")]
     left = [_image(learning_curve_figure(learn, v.objective_label, v.styles),
                    _TEXT_W / 2 - 4),
             _p(_e((learn or {}).get("reading") or "Learning curve did not run."), "caption")]
@@ -843,9 +845,9 @@ def _proposal_tables(v: _View, props) -> list:
             if key in props:
                 rows.append(_cells([f"<b>{_e(lab)}</b>"]
                                    + [_num(props[key].iloc[i]) for i in idx]))
-        w = min(20 * mm, (_TEXT_W - 40 * mm) / len(idx))
+        w = min(20 * mm, (_TEXT_W - 46 * mm) / len(idx))
         extra = [("LINEABOVE", (0, len(params) + 1), (-1, len(params) + 1), 0.6, _RULE)]
-        out += [_table(rows, [40 * mm] + [w] * len(idx), extra=extra), Spacer(1, 2 * mm)]
+        out += [_table(rows, [46 * mm] + [w] * len(idx), extra=extra), Spacer(1, 2 * mm)]
     return out
 
 
