@@ -1199,7 +1199,9 @@ def _summary_notes(table: TrialTable) -> list[str]:
     if table.failures:
         kinds = table.failure_reasons()
         notes.append(f"{table.n_failed} of {table.rows_read} trials failed and are left out "
-                     "of the fit (" + ", ".join(f"{k}: {v}" for k, v in kinds.items()) + ")")
+                     "of the fit (reasons: " + ", ".join(f"{k} {v}" for k, v in kinds.items())
+                     + (", some rows have several" if sum(kinds.values()) > table.n_failed
+                        else "") + ")")
     noise = table.replicate_noise()
     if noise is not None:
         lo, hi = noise["noise_std_interval"]

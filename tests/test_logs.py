@@ -341,3 +341,46 @@ def test_random_tables_round_trip(tmp_path_factory, n, seed, fmt, missing_share,
         assert t.space["k"].kind == "integer"
     if "lvl" in t.params:
         assert t.space["lvl"].kind == "categorical"
+
+
+def _valid_log_text() -> str:
+    df = _frame(n=14, seed=4)
+    df["notes"] = [f"run {i}" for i in range(len(df))]
+    return df.to_csv(index=False)
+
+
+_VALID = _valid_log_text()
+
+
+@settings(max_examples=150, deadline=None)
+@given(edits=st.lists(st.tuples(st.sampled_from(["insert", "delete", "dup_line", "drop_line"]),
+                                st.integers(0, 10_000),
+                                st.sampled_from([",", ";", "\t", '"', "\n", "\r", "x", "1",
+                                                 ".", "-", "\x00", "é", " ", "#", "%"])),
+                      min_size=1, max_size=6))
+def test_mutated_valid_log_loads_or_is_refused(tmp_path_factory, edits):
+    # Small random edits of a valid log (typos, stray quotes, lost or doubled lines):
+    # the loader must either load a valid table or refuse with InputError.
+    text = _VALID
+    for op, pos, ch in edits:
+        lines = text.split("\n")
+        if op == "insert":
+            i = pos % (len(text) + 1)
+            text = text[:i] + ch + text[i:]
+        elif op == "delete" and text:
+            i = pos % len(text)
+            text = text[:i] + text[i + 1:]
+        elif op == "dup_line":
+            i = pos % len(lines)
+            text = "\n".join(lines[:i + 1] + lines[i:])
+        elif op == "drop_line":
+            i = pos % len(lines)
+            text = "\n".join(lines[:i] + lines[i + 1:])
+    f = tmp_path_factory.mktemp("m") / "log.csv"
+    f.write_bytes(text.encode("utf-8"))
+    try:
+        t = load_trials(f, "y", campaign="camp")
+    except InputError as exc:
+        assert str(f) in str(exc)
+        return
+    _check_valid(t)
