@@ -22,11 +22,15 @@ The input is read once, as bytes, and never written.
 
 Typing columns
 --------------
-* A column is numeric when every non-missing cell is a number.  A column's decimal
-  separator is decided per column: ``1,5`` (and no ``1.5`` in the same column) reads as
-  1.5.  Missing markers in numeric columns: empty, ``NA``, ``N/A``, ``NaN``, ``null``,
-  ``None``, ``-``, ``?``, ``#N/A``, ``missing``.  In text columns only an empty cell is
-  missing, so a level such as ``none`` survives.
+* A column is numeric when every non-missing cell is a number (a trailing ``%`` is
+  allowed and dropped).  A column's decimal separator is decided per column: ``1,5``
+  (and no ``1.5`` in the same column) reads as 1.5; in a comma-separated file a column
+  whose only commas look like thousands separators (``"1,500"``) is refused as
+  ambiguous.  Missing markers in numeric columns: empty, ``NA``, ``N/A``, ``NaN``,
+  ``null``, ``None``, ``-``, ``?``, ``#N/A``, ``missing``.  In text columns only an
+  empty cell is missing, so a level such as ``none`` survives.  Numbers with leading
+  zeros (``007``) are read as numbers with a note (declare them categorical if codes).
+* Lines starting with ``#`` above the header are skipped with a note.
 * A parameter column mixing numbers and text is never silently categorical: when most
   cells are numbers it is an error naming the first text cell's line; when most are text
   it is categorical and the note says how many numeric-looking labels it has.
@@ -43,6 +47,9 @@ when any of these holds (all that apply are joined in the reason):
   whose setting is unknown cannot be placed in the space; when a parameter was only
   recorded in some campaigns, leave it out with ``params``;
 * the order value is missing (its place in the campaign is unknown).
+
+Inferred bounds and levels are those of the *successful* trials: the region the
+surrogates have data for.  (A learning rate that always diverged widens nothing.)
 
 Columns the loader sets aside, each with a note: a parameter that is constant over the
 successful trials (nothing to learn from it; a space-file declaration keeps it); a text
@@ -1019,6 +1026,12 @@ class _Builder:
             if n_text == 0:
                 self._record_decimal(name, num)
                 typed[name] = num.values
+                zeros = [c for c in cells if re.fullmatch(r"[+-]?0\d+", c)]
+                if zeros:
+                    space_notes.append(f"column '{name}' has numbers with leading zeros "
+                                       f"('{_show(zeros[0])}'), read as numbers; declare "
+                                       f"[parameters.{name}] kind = \"categorical\" if "
+                                       "they are codes")
                 if name not in named and _looks_like_counter(num.values):
                     space_notes.append(f"column '{name}' counts up like a trial number; "
                                        "it is read as a parameter: pass it as the order "
