@@ -250,6 +250,11 @@ def _ok_cases() -> list[Case]:
         Case("percent signs", _csv([r[:3] + [r[3] + "%"] if i else r
                                     for i, r in enumerate(rows)]).encode(), OBJ, expect="ok",
              check=lambda t: t.n_used == 12 and any("%" in n for n in t.all_notes)),
+        Case("codes with leading zeros", _csv([rows[0] + ["die"]] +
+                                             [r + [f"00{i % 3 + 1}"] for i, r in
+                                              enumerate(rows[1:])]).encode(), OBJ,
+             expect="ok", check=lambda t: t.space["die"].kind == "integer" and
+             any("leading zeros" in n for n in t.all_notes)),
         Case("tab separated", _good(sep="\t"), OBJ, expect="ok",
              check=lambda t: t.read_info["delimiter"] == "tab" and t.n_used == 12),
         Case("tab with decimal comma", _good(sep="\t", decimal=","), OBJ, expect="ok",
