@@ -9,7 +9,8 @@ the trees' leaf distributions (Hutter, Xu, Hoos & Leyton-Brown 2014, §4.3.2)::
 
 i.e. the mean of the within-leaf variances plus the variance of the leaf means (as in
 [HXHL2014, §4.3.2], where each leaf stores the empirical mean and variance of its
-training targets and the forest's prediction is read as a mixture).  The within-leaf variance is ``tree_.impurity`` of the leaf, which for
+training targets and the forest's prediction is read as a mixture).  The within-leaf
+variance is ``tree_.impurity`` of the leaf, which for
 ``criterion="squared_error"`` is the (bootstrap-weighted) mean squared deviation of the
 leaf's training targets from the leaf mean (ddof = 0); ``tests/test_forest_baseline.py``
 recomputes it from the training data via ``apply``.  ``min_samples_leaf=3`` (our
@@ -109,7 +110,8 @@ class RandomForestSurrogate:
 
     def fit(self, X, y):
         X, y = check_fit_inputs(X, y)
-        n_trees = N_TREES[bool(self.quick)] if self.n_estimators is None else int(self.n_estimators)
+        n_trees = (N_TREES[bool(self.quick)] if self.n_estimators is None
+                   else int(self.n_estimators))
         self.forest_ = RandomForestRegressor(
             n_estimators=n_trees, criterion="squared_error",
             min_samples_leaf=self.min_samples_leaf, max_features=self.max_features,
