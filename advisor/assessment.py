@@ -331,7 +331,8 @@ def _recommendation(ranking, backtest_out) -> dict:
                 "runner_up": (choice.get("runner_up") or {}).get("label")},
             "variance_scale": float(row["variance_scale"]),
             "confidence": ranking.confidence, "statement": ranking.statement,
-            "runner_up": runner, "reasons": reasons}
+            "runner_up": runner, "reasons": reasons,
+            "cheaper_alternatives_by_fit_seconds": ranking.cheaper_by_fit_seconds}
 
 
 def _replicate_noise(trials: TrialTable):

@@ -16,6 +16,7 @@ from contextlib import ExitStack
 from pathlib import Path
 
 from .errors import AdvisorError, InputError, UsageError
+from .logs import DEFAULT_SUCCESS
 
 __all__ = ["main", "build_parser"]
 
@@ -45,7 +46,7 @@ def build_parser() -> argparse.ArgumentParser:
                    "(default: all other columns)")
     a.add_argument("--status", help="column with the run status")
     a.add_argument("--success", type=_csv_list, help="status values meaning success, "
-                   "comma-separated (default: ok,success,done,completed)")
+                   "comma-separated (default: " + ",".join(DEFAULT_SUCCESS) + ")")
     a.add_argument("--space", help="TOML file defining the parameter space")
     a.add_argument("--out", default="reports", help="output folder (default: reports)")
     a.add_argument("--seed", type=int, default=0, help="run seed (default 0)")
@@ -76,18 +77,31 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _check_out_dir(out: Path) -> Path:
-    if out.exists() and not out.is_dir():
-        raise InputError("output path is a file, not a folder", path=out,
-                         fix="pass a folder with --out")
+    """Refuse an output path that cannot become a writable folder; create nothing yet
+    (the folder is made only once the input has been read, so a refusal leaves no trace)."""
+    if out.exists():
+        if not out.is_dir():
+            raise InputError("output path is a file, not a folder", path=out,
+                             fix="pass a folder with --out")
+        if not os.access(out, os.W_OK | os.X_OK):
+            raise InputError("output folder is not writable", path=out,
+                             fix="pass a writable folder with --out")
+        return out
+    parent = out.absolute().parent
+    while not parent.exists():
+        parent = parent.parent
+    if not parent.is_dir() or not os.access(parent, os.W_OK | os.X_OK):
+        raise InputError(f"cannot create the output folder under {parent}", path=out,
+                         fix="pass a writable folder with --out")
+    return out
+
+
+def _make_out_dir(out: Path) -> None:
     try:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InputError(f"cannot create output folder ({exc.strerror})", path=out,
                          fix="pass a writable folder with --out") from None
-    if not os.access(out, os.W_OK | os.X_OK):
-        raise InputError("output folder is not writable", path=out,
-                         fix="pass a writable folder with --out")
-    return out
 
 
 def _validate_numbers(args):
@@ -133,7 +147,8 @@ def _assess(args) -> int:
         from .surrogates import surrogate_names
         names = (names or surrogate_names()) + list(args.surrogate)
     load_kwargs = dict(objective=args.objective,
-                       direction="maximize" if args.maximize else "minimize",
+                       # None lets a space file give the direction (default minimize)
+                       direction="maximize" if args.maximize else None,
                        params=args.params, campaign=args.campaign, order=args.order,
                        status=args.status)
     if args.success:
@@ -141,6 +156,7 @@ def _assess(args) -> int:
     if args.space:
         load_kwargs["space"] = args.space
     trials = load_trials(args.log, **load_kwargs)
+    _make_out_dir(out)
     bar, tick = _progress(args.quiet)
     command = "advisor " + " ".join(shlex.quote(x) for x in sys.argv[1:]) \
         if Path(sys.argv[0]).name in ("advisor", "__main__.py") else None

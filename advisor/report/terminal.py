@@ -63,6 +63,8 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
               f"confidence [bold]{rec['confidence']}[/].")
     for reason in rec.get("reasons", []):
         con.print(f"  - {escape(reason)}")
+    for note in rec.get("cheaper_alternatives_by_fit_seconds") or []:
+        con.print(f"  - {escape(note)}")
     for r in d["ranking"][1:]:
         if r.get("reasons"):
             con.print(f"  {r['surrogate']}: {escape(r['reasons'][0])}")
