@@ -67,8 +67,9 @@ class ScaledSurrogate:
 
     Constant input columns are left unscaled (unit divisor) rather than divided by zero.
     Subclasses implement ``_fit(Xs, ys)`` and ``_predict(Xs) -> (mean_s, std_s)`` on
-    standardized data; std_s must include observation noise.  ``sample_y`` is offered
-    when the subclass implements ``_sample_latent(Xs, n, rng)``.
+    standardized data; std_s must include observation noise.  Models that can draw
+    joint latent functions add ``sample_y`` themselves (the neural models share
+    :class:`advisor.surrogates.nets.LatentSamplerMixin`).
     """
 
     input_encoding = "onehot"
