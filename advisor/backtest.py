@@ -48,15 +48,21 @@ Budgets (each a field of :class:`BacktestPlan`, quick / full):
 ``replay_seeds``           1 / 3           model seeds per campaign (the start is fixed
                                            by the order column, so seeds vary the model
                                            and the Thompson / random draws)
-``replay_max_picks``       12 / all        picks after the start (quick caps the replay)
-``refit_every``            3 / 1           picks between refits (stale model in between,
+``replay_max_picks``       10 / all        picks after the start (quick caps the replay)
+``refit_every``            5 / 1           picks between refits (stale model in between,
                                            incumbent always current)
 ``random_orders``          32 / 200        shuffles for the random-order baseline
-``sim_functions``          3 / 8           posterior draws (stand-ins)
+``sim_functions``          2 / 8           posterior draws (stand-ins)
 ``sim_seeds``              1 / 2           runs per stand-in (different random starts)
 ``sim_extra_candidates``   200 / 1000      space samples added to the logged settings
-``sim_max_budget``         20 / none       cap on the simulated budget
+``sim_max_budget``         12 / none       cap on the simulated budget
 =========================  ==============  ===============================================
+
+Refitting is the cost: a neural surrogate takes 0.1-2 s per fit on 2 cores, so the quick
+plan does two fits per run (at the start and after 5 picks), and the settings of one
+surrogate on one pool share their fits (one executor task runs them all with a model
+cache keyed by the training rows), so the fit on the common start is done once.  The
+full plan refits after every pick.
 
 The simulated budget defaults to the median campaign size of the log (the size of the
 next campaign is most likely like the past ones).  With ``batch = q > 1`` each step picks
@@ -90,8 +96,8 @@ Output of :func:`run_backtest` (plain dicts, lists, str, int, float, bool, None)
       functions   [{id: "f0", optimum, worst, argmin_is_logged}, ...]
       results     [RESULT, ...]
       random      SUMMARY + {label, per_unit_mean_auc: {function id: float}}
-    failures      [{surrogate, acquisition: {name, params}, label, experiment, unit,
-                    seed_index, error}, ...]
+    failures      [{surrogate, acquisition: {name, params}, label, experiment,
+                    runs_failed, error (the first one)}, ...]
     per_surrogate {name: CHOICE}    the best setting for each surrogate
     choice        CHOICE            the best surrogate x setting overall
 
@@ -164,9 +170,9 @@ class BacktestPlan:
 
 def plan_for(quick: bool, **changes) -> BacktestPlan:
     """The quick or full plan, with any field overridden by keyword."""
-    base = (BacktestPlan(replay_seeds=1, replay_max_picks=12, refit_every=3,
-                         random_orders=32, sim_functions=3, sim_seeds=1,
-                         sim_extra_candidates=200, sim_max_budget=20)
+    base = (BacktestPlan(replay_seeds=1, replay_max_picks=10, refit_every=5,
+                         random_orders=32, sim_functions=2, sim_seeds=1,
+                         sim_extra_candidates=200, sim_max_budget=12)
             if quick else BacktestPlan())
     return dataclasses.replace(base, **changes)
 
@@ -182,7 +188,8 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
                 frame: pd.DataFrame, y: np.ndarray, init: Sequence[int], n_picks: int,
                 *, batch: int = 1, method: str = "kriging_believer", refit_every: int = 1,
                 model_seed: int = 0, rng: np.random.Generator | int = 0,
-                quick: bool = False) -> tuple[list[int], str | None]:
+                quick: bool = False, cache: dict | None = None
+                ) -> tuple[list[int], str | None]:
     """Run one pool-based campaign and return the picked pool indices in pick order.
 
     Parameters
@@ -204,6 +211,11 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
     batch, method, refit_every, model_seed, rng, quick
         Batch size and method, picks between refits, model seed, acquisition RNG,
         quick model budget.
+    cache : dict, optional
+        Fitted models keyed by the training rows (in order).  Runs of several settings
+        on the same pool with the same ``model_seed`` share it, so the fit on the common
+        start (and on any identical history) is done once; a fit is a deterministic
+        function of seed and data, so sharing changes no result.
 
     Returns
     -------
@@ -234,7 +246,7 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
         else:
             Xt, yt = X[used], y[used]
             if model is None or step % refit_every == 0:
-                model = build().fit(Xt, yt)
+                model = _fitted(build, Xt, yt, tuple(used), cache)
             s = select_batch(model, setting, X[cand], float(yt.min()), q, rng, method,
                              y_scale=_scale(yt), X_train=Xt, y_train=yt,
                              refit=lambda Xa, ya: build().fit(Xa, ya))
@@ -247,34 +259,43 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
     return picked, draws
 
 
+def _fitted(build, X, y, key, cache):
+    if cache is None:
+        return build().fit(X, y)
+    if key not in cache:
+        cache[key] = build().fit(X, y)
+    return cache[key]
+
+
 def _scale(y) -> float:
     s = float(np.std(y))
     return s if s > 1e-12 else 1.0
 
 
-def _pool_task(make, surrogate, setting_dict, space, frame, y, init, n_picks, batch,
-               method, refit_every, model_seed, rng_seed, quick):
-    """Executor task: one pool campaign; an exception is returned, never raised.
+def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, batch,
+               method, refit_every, model_seed, rng_seeds, quick):
+    """Executor task: every setting of one surrogate on one pool and start.
 
-    BLAS is held to one thread: the matrices are small, and on a shared machine
-    multi-threaded BLAS made each GP fit 10-80 times slower (measured on 2 cores).
+    Returns one ``{"picked", "draws", "error"}`` per setting; an exception is recorded,
+    never raised.  The settings share a model cache (see :func:`replay_pool`).  BLAS is
+    held to one thread: the matrices are small, and on a shared machine multi-threaded
+    BLAS made each GP fit 10-80 times slower (measured on 2 cores).
     """
-    try:
-        with threadpool_limits(limits=1):
-            return _pool_task_body(make, surrogate, setting_dict, space, frame, y, init,
-                                   n_picks, batch, method, refit_every, model_seed,
-                                   rng_seed, quick)
-    except Exception as exc:  # a failing surrogate is recorded, never fatal
-        return {"picked": None, "draws": None, "error": f"{type(exc).__name__}: {exc}"}
-
-
-def _pool_task_body(make, surrogate, setting_dict, space, frame, y, init, n_picks, batch,
-                    method, refit_every, model_seed, rng_seed, quick):
-    picked, draws = replay_pool(make, surrogate, AcquisitionSetting.from_dict(setting_dict),
-                                space, frame, y, init, n_picks, batch=batch, method=method,
-                                refit_every=refit_every, model_seed=model_seed,
-                                rng=rng_seed, quick=quick)
-    return {"picked": picked, "draws": draws, "error": None}
+    cache: dict = {}
+    out = []
+    with threadpool_limits(limits=1):
+        for setting_dict, rng_seed in zip(setting_dicts, rng_seeds):
+            try:
+                picked, draws = replay_pool(
+                    make, surrogate, AcquisitionSetting.from_dict(setting_dict), space,
+                    frame, y, init, n_picks, batch=batch, method=method,
+                    refit_every=refit_every, model_seed=model_seed, rng=rng_seed,
+                    quick=quick, cache=cache)
+                out.append({"picked": picked, "draws": draws, "error": None})
+            except Exception as exc:  # a failing surrogate is recorded, never fatal
+                out.append({"picked": None, "draws": None,
+                            "error": f"{type(exc).__name__}: {exc}"})
+    return out
 
 
 # -- curves and summaries -------------------------------------------------------------
@@ -545,14 +566,14 @@ def _replay_grid(trials, pools, surrogates, settings, seed, quick, batch, plan, 
                          else "random trials (no order column)"}}
         units[p["campaign"]] = unit
         for name in surrogates:
-            for st in settings:
-                for s, init in enumerate(inits):
-                    tasks.append((make, name, st.to_dict(), trials.space, frame, y, init,
-                                  picks, batch, plan.batch_method, plan.refit_every,
-                                  task_seed(seed, "model", name, "replay", p["campaign"], s),
-                                  task_seed(seed, "acq", name, st.label, "replay",
-                                            p["campaign"], s), quick))
-                    keys.append((name, st, p["campaign"], s))
+            for s, init in enumerate(inits):
+                tasks.append((make, name, [st.to_dict() for st in settings], trials.space,
+                              frame, y, init, picks, batch, plan.batch_method,
+                              plan.refit_every,
+                              task_seed(seed, "model", name, "replay", p["campaign"], s),
+                              [task_seed(seed, "acq", name, st.label, "replay",
+                                         p["campaign"], s) for st in settings], quick))
+                keys.append((name, p["campaign"], s))
     return units, tasks, keys
 
 
@@ -590,29 +611,29 @@ def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, pl
                                   "worst": float(v.max()),
                                   "argmin_is_logged": bool(stand.argmin[f] < stand.n_logged)})
         for name in surrogates:
-            for st in settings:
-                for s, init in enumerate(inits):
-                    tasks.append((make, name, st.to_dict(), trials.space, stand.frame, v,
-                                  init, total - k, batch, plan.batch_method,
-                                  plan.refit_every,
-                                  task_seed(seed, "model", name, "simulated", uid, s),
-                                  task_seed(seed, "acq", name, st.label, "simulated", uid, s),
-                                  quick))
-                    keys.append((name, st, uid, s))
+            for s, init in enumerate(inits):
+                tasks.append((make, name, [st.to_dict() for st in settings], trials.space,
+                              stand.frame, v, init, total - k, batch, plan.batch_method,
+                              plan.refit_every,
+                              task_seed(seed, "model", name, "simulated", uid, s),
+                              [task_seed(seed, "acq", name, st.label, "simulated", uid, s)
+                               for st in settings], quick))
+                keys.append((name, uid, s))
     return info, units, tasks, keys
 
 
 def _collect(part, units, keys, outputs, surrogates, settings, failures, trials) -> dict:
     runs: dict = {}
     errors: dict = {}
+    failed_runs: dict = {}
     draws: dict = {}
-    for (name, st, uid, s), res in zip(keys, outputs):
+    flat = [((name, st, uid, s), res) for (name, uid, s), per in zip(keys, outputs)
+            for st, res in zip(settings, per)]
+    for (name, st, uid, s), res in flat:
         key = (name, st)
         if res["error"] is not None:
             errors.setdefault(key, res["error"])
-            failures.append({"surrogate": name, "acquisition": st.to_dict(),
-                             "label": st.label, "experiment": part, "unit": uid,
-                             "seed_index": s, "error": res["error"]})
+            failed_runs[key] = failed_runs.get(key, 0) + 1
             continue
         unit = units[uid]
         seq = list(unit["inits"][s]) + list(res["picked"])
@@ -624,6 +645,10 @@ def _collect(part, units, keys, outputs, surrogates, settings, failures, trials)
         runs.setdefault(key, []).append((run, scored))
         if res["draws"]:
             draws[key] = res["draws"]
+    for (name, st), err in errors.items():
+        failures.append({"surrogate": name, "acquisition": st.to_dict(), "label": st.label,
+                         "experiment": part, "runs_failed": failed_runs[(name, st)],
+                         "error": err})
     results = []
     for name in surrogates:
         for st in settings:
