@@ -661,7 +661,8 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
         Batch size (at least 1).
     seed : int
     quick : bool
-        Pool of 1000 candidates instead of 4000.
+        Pool of 1000 candidates instead of 2000 (joint Thompson draws over the pool
+        cost O(pool^3), so the pool stays modest).
     frozen : dict, optional
         ``{parameter: value}`` held fixed in every proposal.
     make : callable
@@ -687,7 +688,7 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
     space = trials.space
     frozen = _check_frozen(space, frozen)
     rng = np.random.default_rng(task_seed(seed, "propose", "pool"))
-    pool = _candidate_pool(trials, frozen, n_pool or (1000 if quick else 4000), rng)
+    pool = _candidate_pool(trials, frozen, n_pool or (1000 if quick else 2000), rng)
     pool = _distinct_new(space, pool, trials.used)
     if len(pool) < k:
         warnings.warn(f"only {len(pool)} new distinct settings found for a batch of {k}",
@@ -731,8 +732,8 @@ def _proposal_frame(trials, picked, mean, std, acq_values, campaign_label) -> pd
     for col in [c for c in trials.frame.columns if c != "_line"]:
         if col in trials.space.names:
             data[col] = picked[col].to_numpy()
-        elif col == trials.objective:
-            data[col] = np.full(k, np.nan)
+        elif col == trials.objective:  # None, not NaN: empty in CSV, null in JSON
+            data[col] = [None] * k
         elif col == trials.campaign:
             data[col] = [campaign_label] * k
         elif col == trials.order:
