@@ -55,7 +55,6 @@ from typing import Callable, Mapping, Sequence
 import numpy as np
 import pandas as pd
 from scipy import stats
-from scipy.stats import qmc
 
 from .acquisition import AcquisitionSetting, acquisition_values, parse_settings, select_batch
 from .errors import UsageError
