@@ -100,7 +100,7 @@ def main(argv=None):
     args = ap.parse_args(argv)
     cases = [("trials500", log_500, 60, None), ("trials5000x20", big_log, 300, 4.0)]
     if args.only:
-        cases = [c for c in cases if c[0].endswith(args.only) or args.only in c[0]]
+        cases = [c for c in cases if c[0] == f"trials{args.only}" or c[0].startswith(f"trials{args.only}x")]
     results = []
     with tempfile.TemporaryDirectory() as tmp:
         for name, fn, lim_s, lim_gb in cases:
