@@ -376,7 +376,7 @@ def select_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, b
                  ) -> Selection:
     """Pick ``q`` distinct candidates.
 
-    ``q = 1``: the argmax of :func:`acquisition_values` (ties to the lowest index).
+    ``q = 1``: the argmax of :func:`acquisition_values` (exact ties broken at random).
     ``q > 1``: greedy fantasies [GLC2010]_, sec. 3.2: after each pick a fantasized
     observation is appended to ``(X_train, y_train)`` and ``refit(X, y)`` returns the
     model used for the next pick.  ``method="kriging_believer"`` fantasizes the model's
@@ -420,7 +420,10 @@ def select_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, b
         values, kind = acquisition_values(model, setting, X_candidates, best, rng, y_scale)
         draws = draws or kind
         values = np.where(free, values, -np.inf)
-        i = int(np.argmax(values))
+        # ties broken at random, not by position: a model that cannot tell candidates
+        # apart must behave like random search, not replay the candidates' order
+        top = np.flatnonzero(values == values.max())
+        i = int(top[0] if len(top) == 1 else rng.choice(top))
         chosen.append(i)
         free[i] = False
         if k == q - 1:

@@ -752,14 +752,19 @@ def _choice_from(ranked: list[dict], bt: dict, who: str) -> dict:
                             else "no backtest experiment ran"]}
     best = ranked[0]
     runner = ranked[1] if len(ranked) > 1 else None
+    overall = len({r["surrogate"] for r in ranked}) > 1 or who != best["surrogate"]
+
+    def name(r):
+        return f"{r['surrogate']} + {r['label']}" if overall else r["label"]
+
     rand = _random_score(bt)
     m_run = None if runner is None else runner["score"] - best["score"]
     m_rand = None if rand is None else rand - best["score"]
     detail = ", ".join(f"{p} {best['parts'][p]['auc']:.3f}" for p in parts)
-    reasons = [f"{best['label']} has the lowest median normalized-regret AUC "
+    reasons = [f"{name(best)} has the lowest median normalized-regret AUC "
                f"({detail}; score {best['score']:.3f}) among {len(ranked)} setting(s)"]
     if runner is not None:
-        reasons.append(f"ahead of {runner['label']} by {m_run:.3f}")
+        reasons.append(f"ahead of {name(runner)} by {m_run:.3f}")
         if m_run < 0.01:
             reasons.append("the margin over the runner-up is under 0.01: the two are "
                            "practically tied on these logs")

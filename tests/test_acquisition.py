@@ -343,3 +343,15 @@ def test_gp_ei_beats_random_search_on_goldstein_price():
     # values span 3..1e6: the GP is fitted to log(y), a monotone map, so EI's argmax is
     # found on a smoother surface (common practice for this function)
     _gp_beats_random("goldstein_price", budget=30, seeds=8, transform=np.log)
+
+
+def test_exact_ties_are_broken_at_random():
+    # a model that cannot tell candidates apart must act as random search: over 400
+    # draws each of 4 tied candidates is picked; a chi-square test (scipy) against the
+    # uniform law at alpha 0.001
+    model = _MeanStdOnly(np.zeros(4), np.ones(4))
+    rng = np.random.default_rng(8)
+    picks = [select_batch(model, AcquisitionSetting("ei"), np.zeros((4, 1)), 0.0, 1,
+                          rng).indices[0] for _ in range(400)]
+    counts = np.bincount(picks, minlength=4)
+    assert stats.chisquare(counts).pvalue > 1e-3
