@@ -963,7 +963,7 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
 
     Every timing-derived value (the ``*_seconds*`` fields, including the exponents
     ``fit_seconds_exponent`` and ``predict_seconds_exponent``) differs between runs;
-    ``over_limit`` is timing-derived too whenever ``max_fit_seconds`` is given.
+    ``over_max_fit_seconds`` is timing-derived too whenever ``max_fit_seconds`` is given.
 
     Returns
     -------
@@ -971,7 +971,7 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
         ``{"logged_trials", "budget", "projected_size", "predict_points",
         "max_fit_seconds", "method", "surrogates": {name: {"sizes", "fit_seconds",
         "predict_seconds", "fit_seconds_exponent", "predict_seconds_exponent",
-        "projected_size", "projected_seconds_per_iteration", "over_limit", "error"}}}``.
+        "projected_size", "projected_seconds_per_iteration", "over_max_fit_seconds", "error"}}}``.
     """
     _check_trials(trials)
     if int(budget) < 0:
@@ -995,7 +995,7 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
         except Exception as exc:  # one model's failure never stops the others
             entry.update(fit_seconds=None, predict_seconds=None, fit_seconds_exponent=None,
                          predict_seconds_exponent=None, projected_seconds_per_iteration=None,
-                         over_limit=False, error=f"{type(exc).__name__}: {exc}")
+                         over_max_fit_seconds=False, error=f"{type(exc).__name__}: {exc}")
             out[name] = entry
             continue
         fit_t = _power_law_at(sizes, fit_s, target)
@@ -1006,7 +1006,7 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
             fit_seconds_exponent=scaling_exponent(sizes, fit_s),
             predict_seconds_exponent=scaling_exponent(sizes, pred_s),
             projected_seconds_per_iteration=per_iter,
-            over_limit=bool(max_fit_seconds is not None and per_iter is not None
+            over_max_fit_seconds=bool(max_fit_seconds is not None and per_iter is not None
                             and per_iter > float(max_fit_seconds)))
         out[name] = entry
     return {"logged_trials": n, "budget": int(budget), "projected_size": target,

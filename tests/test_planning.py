@@ -515,15 +515,15 @@ def test_cost_projection_schema_and_limit():
         e = res["surrogates"][name]
         assert set(e) == {"sizes", "fit_seconds", "predict_seconds", "fit_seconds_exponent",
                           "predict_seconds_exponent", "projected_size",
-                          "projected_seconds_per_iteration", "over_limit", "error"}
+                          "projected_seconds_per_iteration", "over_max_fit_seconds", "error"}
         assert e["sizes"] == [12, 24, 48] and e["error"] is None
-        assert e["over_limit"] is True  # any positive time exceeds 1e-9 s
+        assert e["over_max_fit_seconds"] is True  # any positive time exceeds 1e-9 s
         assert len(e["fit_seconds"]) == 3 and e["projected_seconds_per_iteration"] > 0
     assert json.dumps(res, allow_nan=False)
     res = P.cost_projection(t, ["linear"], seed=0, quick=True, budget=20,
                             max_fit_seconds=1e9, sizes=(30, 96),
                             make=lambda name, seed=0, quick=False: _LinearModel(seed))
-    assert res["surrogates"]["linear"]["over_limit"] is False
+    assert res["surrogates"]["linear"]["over_max_fit_seconds"] is False
     assert res["surrogates"]["linear"]["sizes"] == [30, 96]  # 96 > 48: bootstrap rows
 
 

@@ -868,7 +868,7 @@ def _cost_table(cost) -> list:
         fit = (e.get("fit_seconds") or [None])[-1]
         rows.append(_cells([_name(n), _num(fit), _num(e.get("fit_seconds_exponent")),
                             _num(e.get("projected_seconds_per_iteration")),
-                            "yes" if e.get("over_limit") else "no"]))
+                            "yes" if e.get("over_max_fit_seconds") else "no"]))
     return [_table(rows, [45 * mm, 28 * mm, 32 * mm, 45 * mm, _TEXT_W - 150 * mm]),
             _p("Timings were measured on this machine and differ between runs.", "small")]
 
