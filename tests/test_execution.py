@@ -43,7 +43,8 @@ def _core(a):
     for r in d["ranking"]:
         m = {k: v for k, v in r["metrics"].items() if "seconds" not in k}
         keep.append((r["surrogate"], r["rank"], m, r.get("comparison")))
-    return keep, d["recommendation"]
+    rec = {k: v for k, v in d["recommendation"].items() if "seconds" not in k}
+    return keep, rec
 
 
 @pytest.fixture(scope="module")
