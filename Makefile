@@ -18,11 +18,11 @@ $(STAMP): pyproject.toml | $(PY)
 
 demo: $(STAMP)
 	$(PY) -m advisor assess sample_logs/moulding_warpage.csv --objective warpage_mm \
-	    --campaign lot --order run --out reports --seed $(SEED) --quick
+	    --campaign lot --order run --out reports --seed $(SEED) --quick --propose 5
 	$(PY) -m advisor assess sample_logs/fermentation_yield.csv --objective yield_g_per_l --maximize \
-	    --campaign batch_series --order run --status outcome --success ok --out reports --seed $(SEED) --quick
+	    --campaign batch_series --order run --status outcome --success ok --out reports --seed $(SEED) --quick --propose 5
 	$(PY) -m advisor assess sample_logs/forecast_tuning.csv --objective val_mape \
-	    --campaign study --order trial --out reports --seed $(SEED) --quick
+	    --campaign study --order trial --space sample_logs/forecast_tuning.space.toml --out reports --seed $(SEED) --quick --propose 5
 
 test: $(STAMP)
 	$(PY) -m pytest -q -m "not slow"

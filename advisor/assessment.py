@@ -324,7 +324,12 @@ def _recommendation(ranking, backtest_out) -> dict:
     else:
         reasons.append("acquisition setting is a default (expected improvement, xi = 0.01): "
                        "the acquisition backtest did not run")
+    acq_strength = _acquisition_strength(choice) if source == "backtest" else None
+    if acq_strength is not None:
+        reasons.append(f"strength of the acquisition evidence: {acq_strength[0]} "
+                       f"({acq_strength[1]})")
     return {"surrogate": leader, "acquisition": acq, "acquisition_source": source,
+            "acquisition_evidence": None if acq_strength is None else acq_strength[0],
             "acquisition_margins": None if not (choice and choice.get("acquisition")) else {
                 "over_runner_up": choice.get("margin_over_runner_up"),
                 "over_random": choice.get("margin_over_random"),
@@ -416,3 +421,21 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         except Exception as exc:
             out["errors"]["proposals"] = f"{type(exc).__name__}: {exc}".splitlines()[0][:300]
     return out, proposals
+
+
+def _acquisition_strength(choice: dict) -> tuple[str, str]:
+    """Plain words for how strongly the backtest supports its chosen setting.
+
+    *clear*: beats random order and leads the runner-up by at least 0.01 of normalized
+    regret AUC; *weak*: beats random order but is practically tied with the runner-up;
+    *none*: no better than random order on these logs (the setting is then the best of
+    settings that do not beat random, and a fuller backtest is worth running).
+    """
+    over_random = choice.get("margin_over_random")
+    over_next = choice.get("margin_over_runner_up")
+    if over_random is None or over_random <= 0:
+        return "none", ("no better than random order on these logs; consider a run "
+                        "without --quick, or treat the setting as a default")
+    if over_next is not None and over_next < 0.01:
+        return "weak", "beats random order, but the runner-up setting is practically tied"
+    return "clear", "beats random order and the runner-up setting"

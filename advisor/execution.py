@@ -82,11 +82,17 @@ class Executor:
 
         # return_as="generator" keeps task order and lets us tick progress as results
         # arrive; loky workers are separate processes, so torch threads are per worker.
+        import warnings
+
         par = Parallel(n_jobs=min(self.jobs, total), backend="loky", return_as="generator")
         out = []
-        for i, res in enumerate(par(delayed(fn)(*t) for t in tasks)):
-            out.append(res)
-            self._tick(i + 1, total, label)
+        with warnings.catch_warnings():
+            # loky says so when it replaces an idle worker it had shut down; the task is
+            # resubmitted and nothing is lost, so the warning would only alarm users.
+            warnings.filterwarnings("ignore", message="A worker stopped while some jobs")
+            for i, res in enumerate(par(delayed(fn)(*t) for t in tasks)):
+                out.append(res)
+                self._tick(i + 1, total, label)
         return out
 
     def _map_dask(self, fn, tasks, label):

@@ -58,8 +58,9 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
     params = ", ".join(f"{k}={v}" for k, v in acq.get("params", {}).items())
     scale = rec.get("variance_scale") or 1.0
     scale_txt = f", standard deviation scaled by {scale:.2f}" if abs(scale - 1) > 1e-9 else ""
+    acq_txt = f"{acq['name']}({params})" if params else acq["name"]
     con.print(f"[bold]Recommendation:[/] {rec['surrogate']}{scale_txt}, acquisition "
-              f"{acq['name']}({params}) ({rec['acquisition_source']}); "
+              f"{acq_txt} ({rec['acquisition_source']}); "
               f"confidence [bold]{rec['confidence']}[/].")
     for reason in rec.get("reasons", []):
         con.print(f"  - {escape(reason)}")
