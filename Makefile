@@ -6,7 +6,7 @@ PY     := $(VENV)/bin/python
 STAMP  := $(VENV)/.installed
 SEED   ?= 0
 
-.PHONY: demo test test-all bench samples clean
+.PHONY: demo test test-fast bench samples clean
 
 $(PY):
 	$(PYTHON) -m venv $(VENV)
@@ -24,11 +24,13 @@ demo: $(STAMP)
 	$(PY) -m advisor assess sample_logs/forecast_tuning.csv --objective val_mape \
 	    --campaign study --order trial --space sample_logs/forecast_tuning.space.toml --out reports --seed $(SEED) --quick --propose 5
 
+# The whole suite, slow tests included (about 4 minutes on 2 cores); `make test-fast`
+# skips the tests marked slow for a quick loop while editing.
 test: $(STAMP)
-	$(PY) -m pytest -q -m "not slow"
+	$(PY) -m pytest -q -p no:cacheprovider
 
-test-all: $(STAMP)
-	$(PY) -m pytest -q
+test-fast: $(STAMP)
+	$(PY) -m pytest -q -m "not slow"
 
 bench: $(STAMP)
 	$(PY) benchmarks/run.py

@@ -52,6 +52,11 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
                   _f(m.get("calibration_error"), "{:.3f}"), _f(m.get("spearman"), "{:.2f}"),
                   _f(comp.get("p_best"), "{:.2f}"), _f(m.get("fit_seconds"), "{:.2f}"), note)
     con.print(t)
+    by = v.get("metrics_by_scheme") or {}
+    if len(by) > 1:
+        for scheme, scores in list(by.items())[1:]:
+            con.print(f"also scored under {scheme}: " + ", ".join(
+                f"{n} CRPS {m['crps']:.4g}" for n, m in scores.items() if m.get("crps") is not None))
     _print_noise(con, d)
     rec = d["recommendation"]
     acq = rec["acquisition"]

@@ -1,0 +1,41 @@
+"""The orchestrator's contract: schemes scored, failures isolated, sample logs end to end."""
+
+from pathlib import Path
+
+import pytest
+
+import advisor
+
+ROOT = Path(__file__).resolve().parent.parent
+CHEAP = ["baseline", "user_models:BayesRidge"]
+
+
+@pytest.fixture(scope="module")
+def trials():
+    return advisor.load_trials(ROOT / "sample_logs" / "moulding_warpage.csv",
+                               objective="warpage_mm", campaign="lot", order="run")
+
+
+def test_thorough_mode_scores_every_applicable_scheme(trials):
+    a = advisor.assess(trials, seed=1, quick=False, surrogates=CHEAP, backtest=False,
+                       plan=False, jobs=1)
+    by = a.validation["metrics_by_scheme"]
+    assert list(by) == ["forward", "campaign", "kfold"]     # primary first
+    assert [s["scheme"] for s in a.validation["secondary"]] == ["campaign", "kfold"]
+    for scheme in by.values():
+        assert set(scheme) == set(CHEAP)
+
+
+def test_quick_mode_scores_the_primary_scheme_only(trials):
+    a = advisor.assess(trials, seed=1, quick=True, surrogates=CHEAP, backtest=False,
+                       plan=False, jobs=1)
+    assert list(a.validation["metrics_by_scheme"]) == ["forward"]
+    assert a.validation["reason"].startswith("the log has an order column")
+
+
+def test_recommendation_falls_back_to_a_stated_default_without_backtest(trials):
+    a = advisor.assess(trials, seed=1, quick=True, surrogates=CHEAP, backtest=False,
+                       plan=False, jobs=1)
+    rec = a.recommendation
+    assert rec["acquisition_source"] == "default"
+    assert any("default" in r for r in rec["reasons"])
