@@ -360,11 +360,22 @@ def _settings(acquisitions, quick: bool):
     return list(acquisitions)
 
 
+def _quick_model(name: str, seed: int = 0, quick: bool = True, **options):
+    """Surrogate factory for the backtest: always the quick model budget.
+
+    The backtest compares acquisition settings, refitting a model dozens of times per
+    run; a model's own budget is what cross-validation judges.  Top-level so worker
+    processes can unpickle it.
+    """
+    return make_surrogate(name, seed=seed, quick=True, **options)
+
+
 def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, executor):
-    from .backtest import run_backtest
+    from .backtest import plan_for, run_backtest
 
     return run_backtest(trials, candidates, settings, seed=seed, quick=quick,
-                        budget=budget, batch=batch, executor=executor)
+                        budget=budget, batch=batch, executor=executor,
+                        make=_quick_model, plan=plan_for(quick))
 
 
 def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor):
@@ -392,7 +403,7 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         trials, leader, seed=seed, quick=quick, executor=executor))
     attempt("cost", lambda: planning.cost_projection(
         trials, names, seed=seed, quick=quick, budget=next_budget,
-        max_fit_seconds=max_fit_seconds))
+        max_fit_seconds=max_fit_seconds, repeats=1))
     proposals = None
     if propose:
         frozen = {p["name"]: p["freeze_value"] for p in
