@@ -474,7 +474,7 @@ def _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, q
         pred_s[n] = _nanmean([r["predict_seconds"] for r in res])
         nz = [r["noise_std"] for r in res if r["noise_std"] is not None]
         noise[n] = float(np.mean(nz)) if nz else None
-        info[n] = next((r["info"] for r in res if r["info"]), {})
+        info[n] = _merge_info([r for r in res if r["info"]])
         if errs:
             failures[n] = errs
             continue
@@ -498,3 +498,18 @@ def _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, q
 def _nanmean(values) -> float:
     arr = np.asarray(values, dtype=float)
     return float(np.nanmean(arr)) if np.isfinite(arr).any() else float("nan")
+
+
+def _merge_info(res: list[dict]) -> dict:
+    """A model's facts for the report: those of its largest training fold, with the
+    approximation or mode listed over all folds when they differ (the exact GP may give
+    way to its approximation on the later, larger folds)."""
+    if not res:
+        return {}
+    biggest = max(res, key=lambda r: r["info"].get("n_train", 0) or 0)
+    out = dict(biggest["info"])
+    for key in ("approximation", "mode"):
+        seen = list(dict.fromkeys(str(r["info"][key]) for r in res if key in r["info"]))
+        if len(seen) > 1:
+            out[key] = " / ".join(seen) + " (by fold)"
+    return out

@@ -603,6 +603,8 @@ def _evidence_section(v: _View) -> list:
     story.append(_p("Lower is better for NLL, CRPS, calibration error and sharpness; "
                     "higher for the rank correlations and the top-region scores; seconds are "
                     "the mean per fold on this machine (they vary between runs).", "small"))
+    story.append(Paragraph("How each model was fitted", _S["h2"]))
+    story += _model_notes(v)
     if not v.ok:
         story.append(_p("No working model: no figures of held-out predictions."))
         return story
@@ -634,6 +636,25 @@ def _evidence_section(v: _View) -> list:
     story.append(Paragraph("Scores under each validation scheme", _S["h2"]))
     story += _scheme_table(v)
     return story
+
+
+def _model_notes(v: _View) -> list:
+    """Each model's description and the facts it recorded (approximation used, neural
+    process mode, ensemble size, samples kept, ...), so the reader knows what was run."""
+    rows = [_cells(["surrogate", "model", "as fitted (largest fold)"], "cellhead")]
+    for e in v.ranking:
+        facts = []
+        for k, val in (e.get("info") or {}).items():
+            if isinstance(val, float):
+                val = f"{val:.4g}"
+            elif isinstance(val, (list, tuple)):
+                if len(val) > 6:
+                    continue
+                val = ", ".join(str(x) for x in val)
+            facts.append(f"{k.replace('_', ' ')}: {val}")
+        rows.append(_cells([_name(e["surrogate"]), _e(e.get("description", "")),
+                            _e("; ".join(facts)) or "–"]))
+    return [_table(rows, [30 * mm, 62 * mm, _TEXT_W - 92 * mm])]
 
 
 def _scheme_table(v: _View) -> list:
