@@ -210,10 +210,13 @@ def main(argv: list[str] | None = None) -> int:
     out_dir = Path("reports")
     try:
         parser = build_parser()
-        if not argv or argv[0] in ("-h", "--help"):
-            parser.print_help()
-            return 0 if argv else 2
+        if not argv:
+            raise UsageError("no command given",
+                             fix="run 'advisor assess LOG.csv --objective COL' or 'advisor --help'")
         args = parser.parse_args(argv)
+        if args.command is None:
+            raise UsageError("no command given",
+                             fix="run 'advisor assess LOG.csv --objective COL' or 'advisor --help'")
         if args.command == "surrogates":
             return _list_surrogates()
         out_dir = Path(args.out)

@@ -104,9 +104,18 @@ def test_usage_errors_are_one_line(tmp_path, sample_log, capsys):
         ["assess", str(sample_log), "--objective", "warpage_mm", "--budget", "0"],
         ["assess", str(sample_log), "--objective", "nope", "--out", str(tmp_path)],
         ["frobnicate"],
+        [],
+        ["--seed", "3"],
     ]
     for argv in cases:
         code = main(argv)
         err = capsys.readouterr().err.strip().splitlines()
         assert code == 2, argv
         assert len(err) == 1 and err[0].startswith("error:"), (argv, err)
+
+
+def test_help_exits_zero(capsys):
+    assert main(["--help"]) == 0
+    assert "assess" in capsys.readouterr().out
+    assert main(["assess", "--help"]) == 0
+    assert "--objective" in capsys.readouterr().out
