@@ -74,6 +74,7 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
     for r in d["ranking"][1:]:
         if r.get("reasons"):
             con.print(f"  {r['surrogate']}: {escape(r['reasons'][0])}")
+    _print_plan(con, d)
     con.print(f"[dim]{CAUTION}[/]")
     for w in written:
         con.print(f"wrote {w}")
@@ -95,3 +96,34 @@ def _print_noise(con, d) -> None:
     if fitted:
         parts.append("fitted: " + ", ".join(f"{k} {v:.3g}" for k, v in fitted.items()))
     con.print("noise std: " + "; ".join(parts))
+
+
+def _print_plan(con, d) -> None:
+    """The next-campaign plan in a few lines: what to freeze, whether more trials help,
+    what an iteration will cost, and the proposals."""
+    plan = d.get("planning") or {}
+    if not plan:
+        return
+    con.print(f"[bold]Next campaign[/] (with {plan.get('surrogate')}):")
+    rel = plan.get("relevance") or {}
+    frozen = [p for p in rel.get("parameters") or [] if p.get("freeze")]
+    if rel:
+        if frozen:
+            con.print("  - candidates to freeze at their best logged value (negligible total "
+                      "effect in the logged region): "
+                      + ", ".join(f"{p['name']}={p['freeze_value']}" for p in frozen))
+        else:
+            con.print("  - every parameter has a noticeable effect; none is suggested for freezing")
+    lc = plan.get("learning_curve") or {}
+    if lc.get("reading"):
+        con.print(f"  - learning curve: {escape(lc['reading'])}")
+    cost = (plan.get("cost") or {}).get("surrogates") or {}
+    over = [n for n, c in cost.items() if c.get("over_max_fit_seconds")]
+    if over:
+        con.print("  - projected time per iteration over --max-fit-seconds: " + ", ".join(over))
+    props = plan.get("proposals") or {}
+    if props.get("rows"):
+        con.print(f"  - {len(props['rows'])} proposed settings for the first batch are in the "
+                  "proposals CSV (predicted mean and 90% interval beside each)")
+    for key, err in (plan.get("errors") or {}).items():
+        con.print(f"  - {key} did not run: {escape(err)}")
