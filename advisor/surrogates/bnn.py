@@ -9,8 +9,8 @@ import numpy as np
 import torch
 
 from .base import ScaledSurrogate
-from .nets import (LatentSamplerMixin, StackedMLP, as_tensor, epoch_batches,
-                   mixture_moments, torch_generator, torch_threads)
+from .nets import (LatentSamplerMixin, MixtureOfComponentsMixin, StackedMLP, as_tensor,
+                   epoch_batches, torch_generator, torch_threads)
 
 __all__ = ["SGHMCBayesianNet", "AdaptiveSGHMC"]
 
@@ -113,7 +113,7 @@ _PRESETS = {
 }
 
 
-class SGHMCBayesianNet(LatentSamplerMixin, ScaledSurrogate):
+class SGHMCBayesianNet(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurrogate):
     """Bayesian neural network whose weights are sampled by adaptive SGHMC.
 
     Model, on standardized data: a tanh network ``d -> 50 -> 50 -> 50 -> 2`` outputs
@@ -230,13 +230,10 @@ class SGHMCBayesianNet(LatentSamplerMixin, ScaledSurrogate):
 
     def sample_moments(self, X):
         """Each retained network's mean and noise variance in raw units, (K, n)."""
-        mu, var = self.sample_moments_s(self._scale_x(X))
-        return self.y_mean_ + self.y_scale_ * mu, self.y_scale_ ** 2 * var
+        return self._component_moments(X)
 
-    def _predict(self, Xs):
-        mu, var = self.sample_moments_s(Xs)
-        mean, total = mixture_moments(mu, var)
-        return mean, np.sqrt(total)
+    def _component_moments_s(self, Xs):
+        return self.sample_moments_s(Xs)
 
     def _sample_latent(self, Xs, n_samples, rng):
         mu, _ = self.sample_moments_s(Xs)

@@ -8,8 +8,8 @@ import numpy as np
 import torch
 
 from .base import ScaledSurrogate
-from .nets import (LatentSamplerMixin, StackedMLP, as_tensor, epochs_for, holdout_split,
-                   mixture_moments, torch_generator, torch_threads,
+from .nets import (LatentSamplerMixin, MixtureOfComponentsMixin, StackedMLP, as_tensor,
+                   epochs_for, holdout_split, torch_generator, torch_threads,
                    train_with_early_stopping)
 
 __all__ = ["DeepEnsemble", "gaussian_head"]
@@ -40,7 +40,7 @@ def _gaussian_nll(out, target):
     return (0.5 * (torch.log(var) + (target - mu) ** 2 / var)).mean(dim=-1)
 
 
-class DeepEnsemble(LatentSamplerMixin, ScaledSurrogate):
+class DeepEnsemble(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurrogate):
     """Uniform mixture of independently trained networks with a Gaussian output.
 
     Each of ``M`` networks outputs a mean ``mu_m(x)`` and a variance
@@ -141,13 +141,10 @@ class DeepEnsemble(LatentSamplerMixin, ScaledSurrogate):
 
     def member_moments(self, X):
         """Each member's predictive mean and variance in raw units, shapes (M, n)."""
-        mu, var = self.member_moments_s(self._scale_x(X))
-        return self.y_mean_ + self.y_scale_ * mu, self.y_scale_ ** 2 * var
+        return self._component_moments(X)
 
-    def _predict(self, Xs):
-        mu, var = self.member_moments_s(Xs)
-        mean, total = mixture_moments(mu, var)
-        return mean, np.sqrt(total)
+    def _component_moments_s(self, Xs):
+        return self.member_moments_s(Xs)
 
     def _sample_latent(self, Xs, n_samples, rng):
         mu, _ = self.member_moments_s(Xs)

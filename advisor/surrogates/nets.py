@@ -285,6 +285,22 @@ class LatentSamplerMixin:
         return self.y_mean_ + self.y_scale_ * f
 
 
+class MixtureOfComponentsMixin:
+    """Predict the uniform mixture of a model's components (ensemble members, retained
+    sampler draws), given ``_component_moments_s(Xs) -> (means, variances)`` of shape
+    (K, n) on standardized data; :func:`mixture_moments` combines them."""
+
+    def _component_moments(self, X):
+        """Each component's mean and variance in raw units, shapes (K, n)."""
+        mu, var = self._component_moments_s(self._scale_x(X))
+        return self.y_mean_ + self.y_scale_ * mu, self.y_scale_ ** 2 * var
+
+    def _predict(self, Xs):
+        mu, var = self._component_moments_s(Xs)
+        mean, total = mixture_moments(mu, var)
+        return mean, np.sqrt(total)
+
+
 def train_with_early_stopping(net: StackedMLP, member_loss, X: torch.Tensor, y: torch.Tensor,
                               train_idx, val_idx, *, batch_size: int, epochs: int,
                               patience: int, lr: float, generator: torch.Generator,
