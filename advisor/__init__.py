@@ -8,7 +8,7 @@ Public API::
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from ._version import __version__
 
 __all__ = ["load_trials", "surrogate_names", "make_surrogate", "score_predictions",
            "assess", "Assessment", "__version__"]

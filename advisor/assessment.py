@@ -27,7 +27,7 @@ from typing import Callable, Sequence
 import numpy as np
 import pandas as pd
 
-from . import __version__
+from ._version import __version__
 from .errors import UsageError
 from .execution import Executor, task_seed
 from .logs import TrialTable

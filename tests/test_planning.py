@@ -14,6 +14,7 @@ from scipy import stats
 from threadpoolctl import threadpool_limits
 
 from advisor import planning as P
+from advisor.planning import _common, _learning, _proposals, _relevance
 from advisor.errors import UsageError
 from advisor.execution import Executor
 from advisor.logs import TrialTable
@@ -103,7 +104,7 @@ def _ishigami_space():
 
 def test_sobol_on_ishigami_within_bootstrap_interval():
     first, total = _ishigami_exact()
-    res = P._sobol_indices(_ishigami, _ishigami_space(), "onehot", n_base=2048, seed=3)
+    res = _relevance._sobol_indices(_ishigami, _ishigami_space(), "onehot", n_base=2048, seed=3)
     for est, iv, exact in [(res["first_order"], res["first_interval"], first),
                            (res["total"], res["total_interval"], total)]:
         assert np.all(iv[:, 0] <= exact) and np.all(exact <= iv[:, 1]), (est, iv, exact)
@@ -117,7 +118,7 @@ def test_sobol_on_ishigami_several_seeds(seed):
     # Not one lucky seed: the estimates stay within atol 0.04 of the exact values
     # (2048 base rows; error of order 1e-2 per Saltelli et al. 2010, our margin).
     first, total = _ishigami_exact()
-    res = P._sobol_indices(_ishigami, _ishigami_space(), "onehot", n_base=2048, seed=seed,
+    res = _relevance._sobol_indices(_ishigami, _ishigami_space(), "onehot", n_base=2048, seed=seed,
                            n_resamples=99)
     np.testing.assert_allclose(res["first_order"], first, atol=0.04)
     np.testing.assert_allclose(res["total"], total, atol=0.04)
@@ -141,7 +142,7 @@ def test_sobol_maps_integer_log_and_categorical_parameters(encoding):
 
     var = np.array([14 / 3, (4**2 - 1) / 12, 16 / 12])
     share = var / var.sum()
-    res = P._sobol_indices(fn, space, encoding, n_base=2048, seed=5, n_resamples=99)
+    res = _relevance._sobol_indices(fn, space, encoding, n_base=2048, seed=5, n_resamples=99)
     # 2048 base rows; discrete inputs converge like plain QMC, atol 0.03 (our margin).
     np.testing.assert_allclose(res["first_order"], share, atol=0.03)
     np.testing.assert_allclose(res["total"], share, atol=0.03)
@@ -149,7 +150,7 @@ def test_sobol_maps_integer_log_and_categorical_parameters(encoding):
 
 def test_sobol_rejects_non_power_of_two():
     with pytest.raises(UsageError, match="power of 2"):
-        P._sobol_indices(_ishigami, _ishigami_space(), "onehot", n_base=1000, seed=0)
+        _relevance._sobol_indices(_ishigami, _ishigami_space(), "onehot", n_base=1000, seed=0)
 
 
 # -- 1b. freeze flags on surrogates ----------------------------------------------------
@@ -216,8 +217,8 @@ def test_permutation_of_a_one_hot_block_matches_closed_form():
 
     y = X[:, :3] @ g
     train, test = np.arange(20), np.arange(20, 40)
-    inc = P._permutation_fold(make, "exact", 1, True, X, y, train, test,
-                              P._feature_blocks(space, "onehot"), 2000)
+    inc = _relevance._permutation_fold(make, "exact", 1, True, X, y, train, test,
+                              _common._feature_blocks(space, "onehot"), 2000)
     np.testing.assert_allclose(inc[0], 2 * np.var(y[test]), rtol=0.06)
     assert inc[1] == 0.0
 
@@ -254,7 +255,7 @@ def _mixed_log(seed=0, n=40, direction="minimize"):
 
 
 def _keys(space, frame):
-    return P._setting_keys(space, frame)
+    return _proposals._setting_keys(space, frame)
 
 
 def test_proposals_respect_space_frozen_and_columns():
@@ -367,11 +368,11 @@ def test_reading_rule_on_synthetic_curves():
     sizes = [10, 20, 30, 40]
     falling = np.array([[1.0, 0.8, 0.6, 0.4], [1.1, 0.85, 0.62, 0.41],
                         [0.9, 0.75, 0.58, 0.39]])
-    improving, flat_n, text = P._read_curve(sizes, falling)
+    improving, flat_n, text = _learning._read_curve(sizes, falling)
     assert improving is True and flat_n is None and text.startswith("still improving")
     level = np.array([[1.0, 0.5, 0.52, 0.49], [1.1, 0.48, 0.47, 0.51],
                       [0.9, 0.51, 0.5, 0.5]])
-    improving, flat_n, text = P._read_curve(sizes, level)
+    improving, flat_n, text = _learning._read_curve(sizes, level)
     assert improving is False and flat_n == 20 and text.startswith("flat beyond ~20")
 
 

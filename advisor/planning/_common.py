@@ -1,0 +1,97 @@
+"""Constants and small helpers the planning modules share."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from ..errors import UsageError
+from ..space import ParameterSpace
+
+
+#: Shown beside every proposal, in every output that carries proposals.
+CAUTION = (
+    "These settings are statistical suggestions computed from past trials, not "
+    "instructions. Try them only within validated safe operating limits and under the "
+    "site's procedures, local codes and licensed practice. The tool knows nothing of "
+    "constraints, hazards or limits it was not given, and it does not judge whether a "
+    "setting is safe.")
+
+#: Shown beside the parameter-relevance table.
+RELEVANCE_CAUTION = (
+    "A small effect is small only in the region the logged trials cover and as the "
+    "surrogate reads it there; outside that region, or after a change of material, "
+    "equipment or other parameters, a frozen parameter may matter again. Freezing is a "
+    "suggestion to review with the people who know the process.")
+
+#: Freeze rule, part 1: the upper end of the bootstrap interval of the total Sobol index
+#: must lie below this (common practice in screening: 0.05 of the output variance).
+TOTAL_EFFECT_FREEZE = 0.05
+#: Freeze rule, part 2: the lower end of the permutation-importance interval (increase
+#: in held-out MSE as a share of the objective's variance) must not exceed this: the
+#: importance is not significantly above a negligible 1% of the variance.  Our choice:
+#: "not significantly above zero" alone flags nothing once the folds agree that a
+#: parameter's importance is tiny but positive (measured: 2e-4 of the variance for a
+#: parameter with no effect at all, which a GP still uses slightly to fit noise).
+PERMUTATION_FREEZE = 0.01
+
+#: Central confidence level of the bootstrap and permutation intervals.
+_INTERVAL_LEVEL = 0.95
+#: Two-sided 90% predictive interval of a proposal: mean +- this many std.
+_Z90 = float(stats.norm.ppf(0.95))
+
+
+
+def _encoding(model) -> str:
+    return getattr(model, "input_encoding", "onehot")
+
+
+def _check_trials(trials):
+    if trials.n_used < 2:
+        raise UsageError(f"only {trials.n_used} successful trials; planning needs at least 2",
+                         fix="add successful trials to the log")
+
+
+def _plain(value):
+    """A numpy scalar as a plain Python value (for JSON)."""
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def _fnum(value) -> float | None:
+    v = float(value)
+    return v if math.isfinite(v) else None
+
+
+def _feature_blocks(space: ParameterSpace, encoding: str) -> list[np.ndarray]:
+    """Encoded column indices of each parameter (a one-hot block for a categorical)."""
+    blocks, j = [], 0
+    for p in space:
+        width = len(p.levels) if (p.kind == "categorical" and encoding == "onehot") else 1
+        blocks.append(np.arange(j, j + width))
+        j += width
+    return blocks
+
+
+def _best_row(trials) -> pd.Series:
+    return trials.used.iloc[int(np.argmin(trials.y))]
+
+
+def _fit(make, name, seed, quick, X, y):
+    return make(name, seed=seed, quick=quick).fit(X, y)
+
+
+def _fit_all(make, name, seed, quick, trials):
+    """A surrogate fitted on every successful trial, and the encoding it asked for."""
+    model = make(name, seed=seed, quick=quick)
+    encoding = _encoding(model)
+    model.fit(trials.space.encode(trials.used, encoding), trials.y)
+    return model, encoding
+
+

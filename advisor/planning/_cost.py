@@ -1,0 +1,168 @@
+"""Cost projection: fit and predict seconds against trials, power-law exponent.
+
+See :mod:`advisor.planning` for the references."""
+
+from __future__ import annotations
+
+import math
+import time
+from typing import Callable, Sequence
+
+import numpy as np
+
+from ..errors import UsageError
+from ..execution import task_seed
+from ..surrogates import make_surrogate
+
+from ._common import _check_trials, _encoding
+from ._learning import _MIN_TRAIN
+
+
+def scaling_exponent(sizes, seconds) -> float | None:
+    """Least-squares slope ``b`` of ``log t = a + b log n`` (a power law ``t = c n^b``).
+
+    None when fewer than two positive, finite points or fewer than two distinct sizes.
+    """
+    n = np.asarray(sizes, dtype=float)
+    t = np.asarray(seconds, dtype=float)
+    ok = np.isfinite(n) & np.isfinite(t) & (n > 0) & (t > 0)
+    if ok.sum() < 2 or len(np.unique(n[ok])) < 2:
+        return None
+    slope, _ = np.polyfit(np.log(n[ok]), np.log(t[ok]), 1)
+    return float(slope)
+
+
+def _power_law_at(sizes, seconds, target) -> float | None:
+    n = np.asarray(sizes, dtype=float)
+    t = np.asarray(seconds, dtype=float)
+    ok = np.isfinite(t) & (t > 0)
+    if ok.sum() < 2 or len(np.unique(n[ok])) < 2:
+        return float(t[ok][-1]) if ok.any() else None
+    slope, icpt = np.polyfit(np.log(n[ok]), np.log(t[ok]), 1)
+    return float(math.exp(icpt + slope * math.log(target)))
+
+
+def _resampled(X, y, m, rng, bounds):
+    """``m`` rows: a subsample when ``m <= n``, else all rows plus bootstrap copies with
+    a tiny jitter (1e-3 of each encoded range, 1e-3 of the objective's std) so that no
+    two rows coincide (a GP's kernel matrix would be singular)."""
+    n = len(y)
+    if m <= n:
+        idx = rng.choice(n, m, replace=False)
+        return X[idx], y[idx]
+    extra = rng.integers(0, n, m - n)
+    width = bounds[:, 1] - bounds[:, 0]
+    Xe = X[extra] + rng.normal(0, 1e-3, (m - n, X.shape[1])) * width
+    ye = y[extra] + rng.normal(0, 1e-3 * (np.std(y) or 1.0), m - n)
+    return np.vstack([X, np.clip(Xe, bounds[:, 0], bounds[:, 1])]), np.append(y, ye)
+
+
+def _time_surrogate(make, name, seed, quick, space, X, y, sizes, repeats, n_predict,
+                    encoding, clock):
+    rng = np.random.default_rng(task_seed(seed, "cost", name, "data"))
+    bounds = space.encoded_bounds(encoding)
+    X_pred = space.encode(space.sample(n_predict, rng), encoding)
+    fit_s, pred_s = [], []
+    # One untimed warm-up fit at the smallest size: first calls pay one-time costs
+    # (lazy imports, library initialization, page faults) that would inflate the
+    # smallest size's time and flatten the fitted exponent.
+    Xw, yw = _resampled(X, y, sizes[0], np.random.default_rng(task_seed(seed, "cost", "warm")),
+                        bounds)
+    make(name, seed=task_seed(seed, "cost", name, "warm"), quick=quick).fit(Xw, yw)
+    for m in sizes:
+        Xm, ym = _resampled(X, y, m, np.random.default_rng(task_seed(seed, "cost", m)),
+                            bounds)
+        best_fit = best_pred = math.inf
+        for r in range(repeats):
+            model = make(name, seed=task_seed(seed, "cost", name, m, r), quick=quick)
+            t0 = clock()
+            model.fit(Xm, ym)
+            t1 = clock()
+            model.predict(X_pred)
+            t2 = clock()
+            # The minimum over repeats is the least disturbed by other work on the
+            # machine (common practice, as the timeit documentation advises).
+            best_fit, best_pred = min(best_fit, t1 - t0), min(best_pred, t2 - t1)
+        fit_s.append(best_fit)
+        pred_s.append(best_pred)
+    return fit_s, pred_s
+
+
+def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
+                    quick: bool = False, budget: int, max_fit_seconds: float | None = None,
+                    sizes: Sequence[int] | None = None, n_predict: int = 1000,
+                    repeats: int | None = None, make: Callable = make_surrogate,
+                    clock: Callable[[], float] = time.perf_counter) -> dict:
+    """Measured fit and predict time against the number of trials, and its projection.
+
+    For each surrogate, fit on the log resampled to a few sizes (default ``n/4``,
+    ``n/2``, ``n``, and outside quick mode also ``min(n + budget, 2n)`` by bootstrap
+    rows with tiny jitter) and predict at ``n_predict`` random settings (one
+    acquisition sweep); the minimum over ``repeats`` runs is kept.  A power law
+    ``t = c n^b`` is fitted by least squares on log-log axes (:func:`scaling_exponent`),
+    and the time per iteration (one refit plus one prediction sweep) is projected at
+    the next campaign's size ``n + budget``.  Timings always run serially in this
+    process: parallel workers share cores and would distort them.
+
+    ``clock`` is the wall clock by default (what a team waits for); pass
+    ``time.process_time`` to measure this process's CPU time instead, which other work
+    on a shared machine disturbs less (but which adds up the threads of a
+    multithreaded fit).
+
+    Every timing-derived value (the ``*_seconds*`` fields, including the exponents
+    ``fit_seconds_exponent`` and ``predict_seconds_exponent``) differs between runs;
+    ``over_max_fit_seconds`` is timing-derived too whenever ``max_fit_seconds`` is given.
+
+    Returns
+    -------
+    dict
+        ``{"logged_trials", "budget", "projected_size", "predict_points",
+        "max_fit_seconds", "method", "surrogates": {name: {"sizes", "fit_seconds",
+        "predict_seconds", "fit_seconds_exponent", "predict_seconds_exponent",
+        "projected_size", "projected_seconds_per_iteration", "over_max_fit_seconds", "error"}}}``.
+    """
+    _check_trials(trials)
+    if int(budget) < 0:
+        raise UsageError(f"budget={budget} must be zero or more trials", fix="pass budget >= 0")
+    n = trials.n_used
+    target = n + int(budget)
+    if sizes is None:
+        sizes = {max(_MIN_TRAIN, n // 4), max(_MIN_TRAIN, n // 2), n}
+        if not quick and target > n:
+            sizes.add(min(target, 2 * n))
+    sizes = sorted({int(m) for m in sizes if int(m) >= 2})
+    repeats = int(repeats or (1 if quick else 3))
+    out = {}
+    for name in surrogate_names:
+        encoding = _encoding(make(name, seed=0, quick=quick))
+        X, y = trials.features(encoding), trials.y
+        entry = {"sizes": sizes, "projected_size": target, "error": None}
+        try:
+            fit_s, pred_s = _time_surrogate(make, name, seed, quick, trials.space, X, y,
+                                            sizes, repeats, n_predict, encoding, clock)
+        except Exception as exc:  # one model's failure never stops the others
+            entry.update(fit_seconds=None, predict_seconds=None, fit_seconds_exponent=None,
+                         predict_seconds_exponent=None, projected_seconds_per_iteration=None,
+                         over_max_fit_seconds=False, error=f"{type(exc).__name__}: {exc}")
+            out[name] = entry
+            continue
+        fit_t = _power_law_at(sizes, fit_s, target)
+        pred_t = _power_law_at(sizes, pred_s, target)
+        per_iter = None if fit_t is None or pred_t is None else fit_t + pred_t
+        entry.update(
+            fit_seconds=[float(v) for v in fit_s], predict_seconds=[float(v) for v in pred_s],
+            fit_seconds_exponent=scaling_exponent(sizes, fit_s),
+            predict_seconds_exponent=scaling_exponent(sizes, pred_s),
+            projected_seconds_per_iteration=per_iter,
+            over_max_fit_seconds=bool(max_fit_seconds is not None and per_iter is not None
+                            and per_iter > float(max_fit_seconds)))
+        out[name] = entry
+    return {"logged_trials": n, "budget": int(budget), "projected_size": target,
+            "predict_points": int(n_predict), "max_fit_seconds": max_fit_seconds,
+            "clock": "cpu" if clock is time.process_time else "wall",
+            "method": (f"fit and predict ({n_predict} points) timed at sizes "
+                       f"{', '.join(map(str, sizes))} (minimum of {repeats} run(s), "
+                       "serial); power law fitted by least squares on log-log axes; "
+                       f"projected at {target} trials (logged + budget); larger sizes "
+                       "than the log by bootstrap rows with tiny jitter"),
+            "surrogates": out}

@@ -1,0 +1,256 @@
+"""The proposed first batch of the next campaign.
+
+See :mod:`advisor.planning` for the references."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from typing import Callable, Mapping
+
+import numpy as np
+import pandas as pd
+
+from ..acquisition import AcquisitionSetting, acquisition_values, parse_settings, select_batch
+from ..errors import UsageError
+from ..execution import task_seed
+from ..space import ParameterSpace
+from ..surrogates import make_surrogate
+
+from ._common import _Z90, _check_trials, _fit, _fit_all
+
+
+def _check_frozen(space: ParameterSpace, frozen: Mapping | None) -> dict:
+    frozen = dict(frozen or {})
+    for name, value in frozen.items():
+        if name not in space.names:
+            raise UsageError(f"cannot freeze unknown parameter '{name}'; parameters are: "
+                             + ", ".join(space.names), fix="use one of the listed names")
+        p = space[name]
+        if p.kind == "categorical":
+            if str(value) not in p.levels:
+                raise UsageError(f"frozen value {value!r} of '{name}' is not one of its "
+                                 "levels: " + ", ".join(p.levels), fix="pick a listed level")
+            frozen[name] = str(value)
+            continue
+        v = float(value)
+        if not p.low <= v <= p.high:
+            raise UsageError(f"frozen value {v} of '{name}' is outside its range "
+                             f"{p.low}..{p.high}", fix="pick a value inside the range")
+        if p.kind == "integer" and v != round(v):
+            raise UsageError(f"frozen value {v} of integer parameter '{name}' is not whole",
+                             fix="pick a whole number")
+        frozen[name] = int(round(v)) if p.kind == "integer" else v
+    return frozen
+
+
+def _round_continuous(space: ParameterSpace, frame: pd.DataFrame) -> pd.DataFrame:
+    """Round continuous settings to about 1e-4 of their range (4 significant digits on
+    log scales), so proposals read like settings a person types, not float noise (our
+    choice), then clip back inside the bounds."""
+    frame = frame.copy()
+    for p in space:
+        if p.kind != "continuous" or p.high <= p.low:
+            continue
+        x = frame[p.name].to_numpy(dtype=float)
+        if p.log:
+            mag = np.floor(np.log10(np.abs(x)))
+            x = np.round(x / 10.0 ** (mag - 3)) * 10.0 ** (mag - 3)
+        else:
+            decimals = max(0, int(math.ceil(-math.log10((p.high - p.low) * 1e-4))))
+            x = np.round(x, decimals)
+        frame[p.name] = np.clip(x, p.low, p.high)
+    return frame
+
+
+def _snap(space: ParameterSpace, frame: pd.DataFrame, frozen: dict) -> pd.DataFrame:
+    """Settings inside the space: levels, whole numbers, bounds, frozen values."""
+    frame = space.decode(space.encode(frame, "ordinal"), "ordinal")
+    frame = _round_continuous(space, frame)
+    for name, value in frozen.items():
+        frame[name] = [value] * len(frame)
+    return frame
+
+
+def _setting_keys(space: ParameterSpace, frame: pd.DataFrame) -> list[tuple]:
+    """Hashable identity of each setting: ordinal encoding scaled to [0, 1], rounded to
+    1e-6 of each range (two settings closer than that are the same trial)."""
+    X = space.encode(frame, "ordinal")
+    b = space.encoded_bounds("ordinal")
+    width = np.where(b[:, 1] > b[:, 0], b[:, 1] - b[:, 0], 1.0)
+    Z = np.round((X - b[:, 0]) / width, 6) + 0.0  # + 0.0 folds -0.0 into 0.0
+    return [tuple(row) for row in Z]
+
+
+def _candidate_pool(trials, frozen: dict, n_pool: int, rng: np.random.Generator,
+                    n_best: int = 5, spread: float = 0.1) -> pd.DataFrame:
+    """Random settings plus perturbations of the best logged trials (our scheme).
+
+    Half the pool is drawn uniformly from the space (``ParameterSpace.sample``); the
+    other half perturbs the ``n_best`` best successful trials: numeric settings move by
+    a normal step of ``spread`` times the (log10) range, a categorical setting is
+    redrawn with probability 0.2.  Everything is then snapped into the space.
+    """
+    space = trials.space
+    n_rand = n_pool - n_pool // 2
+    parts = [space.sample(n_rand, rng)]
+    best = trials.used.iloc[np.argsort(trials.y, kind="stable")[:n_best]]
+    if len(best):
+        X = space.encode(best, "ordinal")
+        b = space.encoded_bounds("ordinal")
+        reps = int(math.ceil((n_pool // 2) / len(best)))
+        Xp = np.repeat(X, reps, axis=0)[: n_pool // 2]
+        for j, p in enumerate(space):
+            if p.kind == "categorical":
+                redraw = rng.random(len(Xp)) < 0.2
+                Xp[redraw, j] = rng.integers(0, len(p.levels), int(redraw.sum()))
+            else:
+                Xp[:, j] += rng.normal(0.0, spread * (b[j, 1] - b[j, 0]), len(Xp))
+        parts.append(space.decode(np.clip(Xp, b[:, 0], b[:, 1]), "ordinal"))
+    pool = pd.concat(parts, ignore_index=True)
+    return _snap(space, pool, frozen)
+
+
+def _distinct_new(space, pool: pd.DataFrame, logged: pd.DataFrame) -> pd.DataFrame:
+    seen = set(_setting_keys(space, logged))
+    keep = []
+    for i, key in enumerate(_setting_keys(space, pool)):
+        if key not in seen:
+            seen.add(key)
+            keep.append(i)
+    return pool.iloc[keep].reset_index(drop=True)
+
+
+def _as_setting(setting) -> AcquisitionSetting:
+    """An :class:`AcquisitionSetting` from itself, its text form (``"ei:xi=0.01"``) or
+    its ``to_dict`` form."""
+    if isinstance(setting, AcquisitionSetting):
+        return setting
+    if isinstance(setting, Mapping):
+        return AcquisitionSetting.from_dict(dict(setting))
+    parsed = parse_settings(str(setting))
+    if len(parsed) != 1:
+        raise UsageError(f"'{setting}' names {len(parsed)} acquisition settings; a batch "
+                         "is proposed with exactly one", fix="give one setting, e.g. ei:xi=0.01")
+    return parsed[0]
+
+
+def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
+                  quick: bool = False, frozen: Mapping | None = None,
+                  make: Callable = make_surrogate, n_pool: int | None = None,
+                  campaign_label: str = "next") -> pd.DataFrame:
+    """The first ``k`` settings of the next campaign.
+
+    The surrogate is fitted on every successful logged trial (warm start).  A candidate
+    pool (random settings plus perturbations of the best logged trials, all snapped to
+    levels, whole numbers, bounds and frozen values; logged settings and duplicates
+    removed) is scored by the acquisition setting, and the batch is picked by the
+    *kriging believer* ([GLC2010] Sec. 4.2) through
+    :func:`advisor.acquisition.select_batch`: take the best candidate, add it to the
+    training data with the model's predicted mean as if observed, refit, and pick again,
+    ``k`` times.  Following the paper: the fantasy value is the predictive mean.  Our
+    choices: a finite candidate pool instead of a continuous inner optimizer (robust for
+    integer and categorical spaces; no point is ever off a level or a whole number),
+    and each refit gets its own seed from :func:`task_seed`.
+
+    Predicted mean and 90% interval (mean +- 1.645 std of a new observation, noise
+    included) come from the model fitted on the logged trials only, converted to the
+    user's units and direction.
+
+    Parameters
+    ----------
+    trials : TrialTable
+    surrogate_name : str
+    setting : AcquisitionSetting, str or dict
+        Anything with ``name`` and ``params`` (e.g. ``ei`` with ``xi``, ``ucb`` with
+        ``beta``).
+    k : int
+        Batch size (at least 1).
+    seed : int
+    quick : bool
+        Pool of 1000 candidates instead of 2000 (joint Thompson draws over the pool
+        cost O(pool^3), so the pool stays modest).
+    frozen : dict, optional
+        ``{parameter: value}`` held fixed in every proposal.
+    make : callable
+    n_pool : int, optional
+        Candidate-pool size.
+    campaign_label : str
+        Value written to the campaign column.
+
+    Returns
+    -------
+    DataFrame
+        The log's columns (without the internal ``_line``) in the log's order -- the
+        parameters filled, the objective and status empty, campaign ``campaign_label``,
+        order 1..k, other columns empty -- followed by ``predicted_mean``,
+        ``predicted_low_90``, ``predicted_high_90`` and ``acquisition``.  Fewer than
+        ``k`` rows (with a warning) when the space holds fewer new distinct settings.
+    """
+    _check_trials(trials)
+    if int(k) < 1:
+        raise UsageError(f"k={k}: the batch needs at least one proposal", fix="pass k >= 1")
+    k = int(k)
+    setting = _as_setting(setting)
+    space = trials.space
+    frozen = _check_frozen(space, frozen)
+    rng = np.random.default_rng(task_seed(seed, "propose", "pool"))
+    pool = _candidate_pool(trials, frozen, n_pool or (1000 if quick else 2000), rng)
+    pool = _distinct_new(space, pool, trials.used)
+    if len(pool) < k:
+        warnings.warn(f"only {len(pool)} new distinct settings found for a batch of {k}",
+                      RuntimeWarning, stacklevel=2)
+        k = len(pool)
+
+    model, encoding = _fit_all(make, surrogate_name, task_seed(seed, "propose", "fit", 0),
+                               quick, trials)
+    X_pool = space.encode(pool, encoding)
+    X_train, y_train = space.encode(trials.used, encoding), trials.y.copy()
+    y_best = float(np.min(trials.y))
+    y_scale = float(np.std(trials.y)) or 1.0
+    refits = iter(range(1, k))
+
+    def refit(X_aug, y_aug):
+        return _fit(make, surrogate_name, task_seed(seed, "propose", "fit", next(refits)),
+                    quick, X_aug, y_aug)
+
+    acq_rng = np.random.default_rng(task_seed(seed, "propose", "acquisition"))
+    chosen = [int(i) for i in select_batch(
+        model, setting, X_pool, y_best, q=k, rng=acq_rng, method="kriging_believer",
+        y_scale=y_scale, X_train=X_train, y_train=y_train, refit=refit).indices] if k else []
+    # Reported utility: under the warm-start model (no fantasies), so the column reads
+    # the same for every row; for Thompson and random it is one more draw.
+    acq_values = (acquisition_values(model, setting, X_pool[chosen], y_best,
+                                     np.random.default_rng(task_seed(seed, "propose", "value")),
+                                     y_scale)[0] if chosen else np.zeros(0))
+    picked = pool.iloc[chosen].reset_index(drop=True)
+    mean, std = (model.predict(X_pool[chosen]) if chosen
+                 else (np.zeros(0), np.zeros(0)))
+    return _proposal_frame(trials, picked, np.asarray(mean, float), np.asarray(std, float),
+                           acq_values, campaign_label)
+
+
+def _proposal_frame(trials, picked, mean, std, acq_values, campaign_label) -> pd.DataFrame:
+    k = len(picked)
+    sign = trials.sign
+    lo_raw = sign * (mean - _Z90 * std)
+    hi_raw = sign * (mean + _Z90 * std)
+    data = {}
+    for col in [c for c in trials.frame.columns if c != "_line"]:
+        if col in trials.space.names:
+            data[col] = picked[col].to_numpy()
+        elif col == trials.objective:  # None, not NaN: empty in CSV, null in JSON
+            data[col] = [None] * k
+        elif col == trials.campaign:
+            data[col] = [campaign_label] * k
+        elif col == trials.order:
+            data[col] = np.arange(1, k + 1)
+        else:  # status and any other column: left for the team to fill in
+            data[col] = [None] * k
+    data["predicted_mean"] = sign * mean
+    data["predicted_low_90"] = np.minimum(lo_raw, hi_raw)
+    data["predicted_high_90"] = np.maximum(lo_raw, hi_raw)
+    data["acquisition"] = np.asarray(acq_values, dtype=float)
+    return pd.DataFrame(data)
+
+

@@ -1,0 +1,376 @@
+"""Parameter relevance: Sobol indices of the surrogate mean, held-out permutation importance,
+length scales, and the freeze rule.
+
+See :mod:`advisor.planning` for the references."""
+
+from __future__ import annotations
+
+import math
+import warnings
+from typing import Callable
+
+import numpy as np
+from scipy import stats
+
+from ..errors import UsageError
+from ..execution import Executor, task_seed
+from ..space import ParameterSpace
+from ..surrogates import make_surrogate
+
+from ._common import PERMUTATION_FREEZE, RELEVANCE_CAUTION, TOTAL_EFFECT_FREEZE, _INTERVAL_LEVEL, _best_row, _check_trials, _feature_blocks, _fit, _fit_all, _fnum, _plain
+
+
+def _sobol_design(space: ParameterSpace, encoding: str):
+    """Input distributions for :func:`scipy.stats.sobol_indices` and the map from a
+    design matrix ``Z`` (d × n, one row per parameter) to the surrogate's encoding.
+
+    Continuous parameters are uniform on their range (log10 range for log scales);
+    integer parameters are uniform over their whole values (``randint``), or uniform in
+    log10 space then rounded for log scales; categorical parameters are uniform over
+    their level codes (``randint``) and become one-hot blocks or codes inside the map.
+    These are our choices: they make the indices describe the whole bounded space with
+    every setting equally likely, which is what a campaign searching the space sees.
+    """
+    dists, mappers = [], []
+    for p in space:
+        if p.kind == "categorical":
+            n_lev = len(p.levels)
+            dists.append(stats.randint(0, n_lev))
+            if encoding == "onehot":
+                mappers.append(lambda z, n_lev=n_lev: (
+                    np.clip(np.rint(z), 0, n_lev - 1)[:, None] == np.arange(n_lev)
+                ).astype(float))
+            else:
+                mappers.append(lambda z, n_lev=n_lev: np.clip(np.rint(z), 0, n_lev - 1)[:, None])
+            continue
+        lo, hi = float(p.low), float(p.high)
+        if p.kind == "integer":
+            ilo, ihi = math.ceil(lo), math.floor(hi)
+            if p.log and ihi > ilo:
+                dists.append(stats.uniform(math.log10(ilo), math.log10(ihi) - math.log10(ilo)))
+                mappers.append(lambda z, ilo=ilo, ihi=ihi: np.log10(
+                    np.clip(np.rint(10.0 ** z), ilo, ihi))[:, None])
+            else:
+                dists.append(stats.randint(ilo, ihi + 1))
+                enc = (lambda v: np.log10(v)) if p.log else (lambda v: v)
+                mappers.append(lambda z, ilo=ilo, ihi=ihi, enc=enc:
+                               enc(np.clip(np.rint(z), ilo, ihi))[:, None])
+            continue
+        elo, ehi = (math.log10(lo), math.log10(hi)) if p.log else (lo, hi)
+        if ehi > elo:
+            dists.append(stats.uniform(elo, ehi - elo))
+            mappers.append(lambda z, elo=elo, ehi=ehi: np.clip(z, elo, ehi)[:, None])
+        else:
+            # A constant parameter: a one-point distribution (scipy's uniform needs a
+            # positive width), mapped back to its single value.
+            dists.append(stats.randint(0, 1))
+            mappers.append(lambda z, elo=elo: np.full((len(z), 1), elo))
+
+    def to_encoded(Z):
+        Z = np.asarray(Z, dtype=float)
+        return np.hstack([m(Z[i]) for i, m in enumerate(mappers)])
+
+    return dists, to_encoded
+
+
+def _saltelli_2010(f_A, f_B, f_AB):
+    """First-order and total indices, [SAL2010] Table 2 (b) and (f).
+
+    ``f_A``, ``f_B``: (s, n); ``f_AB``: (d, s, n), all centred by the same mean.
+    Hand-written (scipy's copy is private) because the seeded bootstrap below must call
+    the same estimator on resampled rows.
+
+        S_i  = mean(f_B (f_AB^(i) - f_A)) / V
+        ST_i = mean((f_A - f_AB^(i))^2) / (2 V),   V = var([f_A, f_B])
+    """
+    var = np.var([f_A, f_B], axis=(0, -1))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = np.mean(f_B * (f_AB - f_A), axis=-1) / var
+        st = 0.5 * np.mean((f_A - f_AB) ** 2, axis=-1) / var
+    return s.T, st.T
+
+
+def _sobol_indices(predict_mean: Callable[[np.ndarray], np.ndarray], space: ParameterSpace,
+                   encoding: str, *, n_base: int, seed: int, n_resamples: int = 999,
+                   level: float = _INTERVAL_LEVEL) -> dict:
+    """Sobol indices of ``predict_mean`` (encoded X → mean) over the whole space.
+
+    Point estimates come from :func:`scipy.stats.sobol_indices` ([SAL2010] design and
+    estimators, ``n_base * (d + 2)`` evaluations).  The intervals are BCa bootstrap
+    intervals over the ``n_base`` rows of the design, exactly as ``SobolResult.bootstrap``
+    builds them, but through :func:`scipy.stats.bootstrap` with our own seeded
+    generator: ``SobolResult.bootstrap`` takes no seed, and the tool must be
+    reproducible.  The centred evaluations are taken from scipy through its public
+    ``method`` hook.
+
+    Returns ``{"first_order", "total", "first_interval" (d, 2), "total_interval" (d, 2),
+    "variance"}`` (arrays).
+    """
+    if n_base < 2 or n_base & (n_base - 1):
+        raise UsageError(f"n_base={n_base} must be a power of 2 (Sobol' balance)",
+                         fix="use e.g. 512, 1024 or 2048")
+    dists, to_encoded = _sobol_design(space, encoding)
+    captured = {}
+
+    def method(f_A, f_B, f_AB):
+        captured.update(f_A=f_A, f_B=f_B, f_AB=f_AB)
+        return _saltelli_2010(f_A, f_B, f_AB)
+
+    def func(Z):
+        return np.asarray(predict_mean(to_encoded(Z)), dtype=float).ravel()
+
+    res = stats.sobol_indices(func=func, n=n_base, dists=dists, method=method,
+                              rng=np.random.default_rng(seed))
+    s1 = np.atleast_1d(np.asarray(res.first_order, dtype=float))
+    st = np.atleast_1d(np.asarray(res.total_order, dtype=float))
+    f_A, f_B, f_AB = captured["f_A"], captured["f_B"], captured["f_AB"]
+    variance = float(np.var([f_A, f_B]))
+    d = len(space)
+    if not variance > 0:
+        zeros = np.zeros((d, 2))
+        return {"first_order": s1, "total": st, "first_interval": zeros,
+                "total_interval": zeros, "variance": variance}
+
+    fa, fb, fab = f_A[0], f_B[0], f_AB[:, 0, :]
+
+    def statistic(idx, axis=-1):
+        # Vectorized over resamples (idx is (..., n)): the BCa jackknife alone would
+        # otherwise make n_base separate calls.  Same estimator as _saltelli_2010.
+        a, b, ab = fa[idx], fb[idx], fab[:, idx]
+        var = np.var(np.concatenate([a, b], axis=-1), axis=-1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            s = np.mean(b * (ab - a), axis=-1) / var
+            t = 0.5 * np.mean((a - ab) ** 2, axis=-1) / var
+        return np.concatenate([s, t], axis=0)
+
+    with warnings.catch_warnings():
+        # A parameter with exactly zero effect gives a degenerate bootstrap distribution
+        # (BCa is then undefined); handled below.
+        warnings.simplefilter("ignore")
+        boot = stats.bootstrap((np.arange(n_base),), statistic, method="BCa",
+                               n_resamples=n_resamples, confidence_level=level,
+                               vectorized=True, batch=max(1, 2**18 // (n_base * (d + 2))),
+                               rng=np.random.default_rng(task_seed(seed, "sobol-bootstrap")))
+    lo = np.asarray(boot.confidence_interval.low, dtype=float)
+    hi = np.asarray(boot.confidence_interval.high, dtype=float)
+    dist = np.asarray(boot.bootstrap_distribution, dtype=float)
+    alpha = (1 - level) / 2
+    bad = ~(np.isfinite(lo) & np.isfinite(hi))
+    if bad.any():  # percentile interval where BCa is undefined
+        lo[bad] = np.quantile(dist[bad], alpha, axis=-1)
+        hi[bad] = np.quantile(dist[bad], 1 - alpha, axis=-1)
+    est = np.concatenate([s1, st])
+    lo, hi = np.minimum(lo, est), np.maximum(hi, est)
+    return {"first_order": s1, "total": st,
+            "first_interval": np.column_stack([lo[:d], hi[:d]]),
+            "total_interval": np.column_stack([lo[d:], hi[d:]]), "variance": variance}
+
+
+def _permutation_fold(make, name, seed, quick, X, y, train, test, blocks, n_repeats):
+    """Held-out permutation importance of each parameter on one fold ([BRE2001] Sec. 10,
+    on a held-out fold instead of out-of-bag rows; [FRD2019] Eq. 3.3 as a difference).
+
+    Hand-written rather than ``sklearn.inspection.permutation_importance``: a one-hot
+    categorical must be permuted as a whole block (scikit-learn permutes single columns)
+    and the surrogate protocol returns ``(mean, std)``, not an estimator's ``predict``.
+    Returns the mean increase in held-out MSE per parameter (n_params,).
+    """
+    model = _fit(make, name, task_seed(seed, "fit"), quick, X[train], y[train])
+    Xt, yt = X[test], y[test]
+    base = float(np.mean((model.predict(Xt)[0] - yt) ** 2))
+    rng = np.random.default_rng(task_seed(seed, "permute"))
+    out = np.zeros(len(blocks))
+    for i, cols in enumerate(blocks):
+        inc = []
+        for _ in range(n_repeats):
+            Xp = Xt.copy()
+            Xp[:, cols] = Xt[rng.permutation(len(test))][:, cols]
+            inc.append(float(np.mean((model.predict(Xp)[0] - yt) ** 2)) - base)
+        out[i] = np.mean(inc)
+    return out
+
+
+def _length_scales(model, blocks) -> list[float | None]:
+    ls = getattr(model, "length_scales_", None)
+    if ls is None:
+        return [None] * len(blocks)
+    ls = np.atleast_1d(np.asarray(ls, dtype=float))
+    n_features = sum(len(b) for b in blocks)
+    if ls.size == 1:
+        ls = np.full(n_features, float(ls[0]))
+    if ls.size != n_features:
+        return [None] * len(blocks)
+    # The shortest length scale in a one-hot block is the level contrast the GP reads
+    # as most relevant ([RW2006] Sec. 5.1: relevance ~ 1 / length scale).
+    return [_fnum(np.min(ls[b])) for b in blocks]
+
+
+def _relative(scales, space, encoding, blocks) -> list[float | None]:
+    """Length scale over the parameter's encoded range, comparable across parameters
+    (a value well above 1 means the GP sees the parameter as nearly irrelevant)."""
+    bounds = space.encoded_bounds(encoding)
+    out = []
+    for s, b in zip(scales, blocks):
+        width = float(np.max(bounds[b, 1] - bounds[b, 0]))
+        out.append(None if s is None or not width > 0 else s / width)
+    return out
+
+
+def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool = False,
+                        make: Callable = make_surrogate, n_base: int | None = None,
+                        n_folds: int | None = None, n_repeats: int | None = None,
+                        executor: Executor | None = None) -> dict:
+    """How much each parameter matters, as the fitted surrogate reads the logs.
+
+    1. The surrogate is fitted on all successful trials; first-order ``S_i`` and total
+       ``ST_i`` Sobol indices [SOB2001] of its predictive *mean* are estimated over the
+       whole space with the [SAL2010] design and estimators (``scipy.stats.sobol_indices``,
+       ``n_base * (d + 2)`` predictions), every setting equally likely (uniform, log10
+       uniform on log scales, discrete uniform over integers and levels), with 95% BCa
+       bootstrap intervals.
+    2. Cross-check: permutation importance on held-out folds ([BRE2001], [FRD2019]):
+       the increase in held-out mean squared error when one parameter's column(s) are
+       permuted among the held-out rows (a one-hot block as a whole), as a share of
+       the objective's variance; mean over ``n_folds`` shuffled folds with a 95%
+       Student-t interval across folds (our choice).
+    3. For a model with ``length_scales_`` (the GP), its fitted ARD length scale per
+       parameter ([RW2006] Sec. 5.1; raw encoded units, the shortest of a one-hot
+       block) and the same divided by the parameter's encoded range.
+
+    A parameter is flagged ``freeze`` when the upper end of its ``ST`` interval is below
+    ``TOTAL_EFFECT_FREEZE`` (0.05) *and* the lower end of its permutation interval is
+    not above ``PERMUTATION_FREEZE`` (0.01: not significantly above 1% of the
+    objective's variance); its
+    ``freeze_value`` is its value at the best successful trial.  When the surrogate's
+    mean is flat (zero variance) nothing is flagged: there is no evidence either way.
+
+    Parameters
+    ----------
+    trials : TrialTable
+    surrogate_name : str
+    seed : int
+    quick : bool
+        Smaller design (``n_base`` 512 instead of 2048, 3 folds instead of 5, 5
+        permutation repeats instead of 10, 499 bootstrap resamples instead of 999).
+    make : callable
+        ``make(name, seed=..., quick=...)`` → unfitted surrogate.
+    n_base : int, optional
+        Rows of each Sobol design matrix; a power of 2.
+    n_folds, n_repeats : int, optional
+    executor : Executor, optional
+        Runs the permutation folds.
+
+    Returns
+    -------
+    dict
+        ``{"surrogate", "parameters": [{"name", "first_order", "first_order_interval",
+        "total", "total_interval", "permutation_importance", "permutation_interval",
+        "length_scale", "length_scale_relative", "freeze", "freeze_value", "evidence"}],
+        "model_mean_variance",
+        "n_base", "n_folds", "thresholds", "method", "caution"}``.
+    """
+    _check_trials(trials)
+    n_base = n_base or (512 if quick else 2048)
+    n_folds = n_folds or (3 if quick else 5)
+    n_repeats = n_repeats or (5 if quick else 10)
+    space = trials.space
+    y = trials.y
+    model, encoding = _fit_all(make, surrogate_name, task_seed(seed, "relevance", "all"),
+                               quick, trials)
+    X = space.encode(trials.used, encoding)
+    blocks = _feature_blocks(space, encoding)
+
+    sob = _sobol_indices(lambda Xe: model.predict(Xe)[0], space, encoding, n_base=n_base,
+                         seed=task_seed(seed, "sobol"), n_resamples=499 if quick else 999)
+
+    perm, perm_lo, perm_hi = _permutation_importance(
+        make, surrogate_name, seed, quick, X, y, blocks, n_folds, n_repeats, executor)
+    scales = _length_scales(model, blocks)
+    rel_scales = _relative(scales, space, encoding, blocks)
+    best = _best_row(trials)
+    flat = not sob["variance"] > 1e-12 * max(1.0, float(np.var(y)))
+
+    rows = []
+    for i, p in enumerate(space):
+        t_hi = float(sob["total_interval"][i, 1])
+        freeze = bool((not flat) and t_hi < TOTAL_EFFECT_FREEZE
+                      and not perm_lo[i] > PERMUTATION_FREEZE)
+        rows.append({
+            "name": p.name,
+            "first_order": _fnum(sob["first_order"][i]),
+            "first_order_interval": [_fnum(v) for v in sob["first_interval"][i]],
+            "total": _fnum(sob["total"][i]),
+            "total_interval": [_fnum(v) for v in sob["total_interval"][i]],
+            "permutation_importance": _fnum(perm[i]),
+            "permutation_interval": [_fnum(perm_lo[i]), _fnum(perm_hi[i])],
+            "length_scale": scales[i],
+            "length_scale_relative": rel_scales[i],
+            "freeze": freeze,
+            "freeze_value": _plain(best[p.name]) if freeze else None,
+            "evidence": _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat),
+        })
+    return {
+        "surrogate": surrogate_name,
+        "parameters": rows,
+        "model_mean_variance": _fnum(sob["variance"]),
+        "n_base": int(n_base),
+        "n_folds": int(n_folds),
+        "thresholds": {"total_upper_below": TOTAL_EFFECT_FREEZE,
+                       "permutation_lower_at_most": PERMUTATION_FREEZE,
+                       "interval_level": _INTERVAL_LEVEL},
+        "method": (
+            f"Sobol' first-order and total indices of the {surrogate_name} surrogate's "
+            f"mean over the whole space (Saltelli et al. 2010 estimators, {n_base} base "
+            f"rows, every setting equally likely), 95% BCa bootstrap intervals; "
+            f"cross-checked by held-out permutation importance ({n_folds} folds, "
+            f"{n_repeats} permutations each; increase in held-out MSE as a share of the "
+            "objective's variance, 95% t-interval over folds)"
+            + ("; and the GP's fitted length scales" if any(s is not None for s in scales)
+               else "")
+            + f". A parameter is a candidate to freeze when the upper end of its total-"
+            f"index interval is below {TOTAL_EFFECT_FREEZE} and the lower end of its "
+            f"permutation-importance interval is at most {PERMUTATION_FREEZE} of the "
+            "variance."),
+        "caution": RELEVANCE_CAUTION,
+    }
+
+
+def _permutation_importance(make, name, seed, quick, X, y, blocks, n_folds, n_repeats,
+                            executor):
+    from sklearn.model_selection import KFold
+
+    n_folds = max(2, min(n_folds, len(y) // 2))
+    folds = list(KFold(n_folds, shuffle=True,
+                       random_state=task_seed(seed, "relevance-folds") % (2**31)).split(X))
+    tasks = [(make, name, task_seed(seed, "relevance", "fold", k), quick, X, y, tr, te,
+              blocks, n_repeats) for k, (tr, te) in enumerate(folds)]
+    ex = executor or Executor()
+    per_fold = np.array(ex.map(_permutation_fold, tasks, label="relevance"))
+    per_fold = per_fold / max(float(np.var(y)), 1e-300)
+    mean = per_fold.mean(axis=0)
+    half = (stats.t.ppf(0.5 + _INTERVAL_LEVEL / 2, n_folds - 1)
+            * per_fold.std(axis=0, ddof=1) / math.sqrt(n_folds))
+    return mean, mean - half, mean + half
+
+
+def _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat) -> str:
+    t, (t_lo, t_hi) = sob["total"][i], sob["total_interval"][i]
+    text = (f"total effect {t:.3f} (95% interval {t_lo:.3f} to {t_hi:.3f}), first-order "
+            f"{sob['first_order'][i]:.3f}; held-out permutation importance {perm[i]:.3f} "
+            f"of the variance (95% interval {perm_lo[i]:.3f} to {perm_hi[i]:.3f})")
+    if scales[i] is not None:
+        text += f"; GP length scale {scales[i]:.3g} (encoded units)"
+    if flat:
+        return text + "; the model's mean is flat, so no parameter can be judged"
+    if freeze:
+        return text + ("; negligible by both measures: a candidate to freeze at its value "
+                       "in the best logged trial")
+    reasons = []
+    if not t_hi < TOTAL_EFFECT_FREEZE:
+        reasons.append(f"total-effect interval reaches {TOTAL_EFFECT_FREEZE} or more")
+    if perm_lo[i] > PERMUTATION_FREEZE:
+        reasons.append(f"permutation importance significantly above {PERMUTATION_FREEZE} "
+                       "of the variance")
+    return text + "; keep tuning: " + " and ".join(reasons)
+
+
