@@ -10,8 +10,8 @@ reader never sees a mixed set:
   (mode 0600), and a rename keeps the mode; each temporary file is therefore given
   ``0o666 & ~umask`` first, the mode any new file gets (POSIX ``open(2)``).
 * **Two runs into one folder.**  The rename phase holds an exclusive ``fcntl.flock`` on
-  ``DIR/.advisor.lock`` (the file keeps the pid of its last holder, for diagnosis).
-  The kernel drops a ``flock`` when its holder dies, so a lock can never go stale; a
+  the output folder itself (no lock file is left behind).  The kernel drops a
+  ``flock`` when its holder dies, so a lock can never go stale; a
   second run waits for the first to finish renaming (milliseconds), then publishes its
   own complete set.  A member of an older set that the new run does not produce (a
   proposals file, say) is removed in the same phase, so the folder never shows one
@@ -34,9 +34,8 @@ from pathlib import Path
 
 from ..errors import OutputError
 
-__all__ = ["ReportSet", "new_file_mode", "LOCK_NAME", "LOCK_WAIT_SECONDS"]
+__all__ = ["ReportSet", "new_file_mode", "LOCK_WAIT_SECONDS"]
 
-LOCK_NAME = ".advisor.lock"
 #: How long a run waits for another run's rename phase before giving up.
 LOCK_WAIT_SECONDS = 60.0
 _HELD = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP) if hasattr(signal, "SIGHUP") else (
@@ -142,8 +141,7 @@ class ReportSet:
         except ImportError:  # not POSIX: renames in one phase, without a lock
             yield
             return
-        path = self.folder / LOCK_NAME
-        fd = os.open(path, os.O_RDWR | os.O_CREAT, new_file_mode())
+        fd = os.open(self.folder, os.O_RDONLY)
         try:
             deadline = time.monotonic() + LOCK_WAIT_SECONDS
             while True:
@@ -152,15 +150,12 @@ class ReportSet:
                     break
                 except BlockingIOError:
                     if time.monotonic() > deadline:
-                        holder = os.pread(fd, 64, 0).decode(errors="replace").strip()
                         raise OutputError(
-                            f"{path} is held by another advisor run (pid {holder or '?'}) "
-                            f"for over {LOCK_WAIT_SECONDS:.0f} s; nothing was written",
+                            f"{self.folder} is being written by another advisor run for "
+                            f"over {LOCK_WAIT_SECONDS:.0f} s; nothing was written",
                             fix="wait for that run to finish, or pass another --out"
                         ) from None
                     time.sleep(0.05)
-            os.ftruncate(fd, 0)
-            os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
             yield
         finally:
             os.close(fd)  # closing the descriptor drops the flock
