@@ -1,3 +1,4 @@
-from .cli import main
+from .cli import entry
 
-raise SystemExit(main())
+if __name__ == "__main__":  # not when multiprocessing's spawn imports it as __mp_main__
+    entry()

@@ -138,7 +138,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
            propose: int = 0, max_fit_seconds: float | None = None,
            backtest: bool = True, plan: bool = True,
            progress: Callable[[int, int, str], None] | None = None,
-           command: str | None = None) -> Assessment:
+           command: str | None = None,
+           model_time_limit: float | None = 600.0) -> Assessment:
     """Cross-validate every candidate surrogate on ``trials`` and recommend one.
 
     Parameters
@@ -165,6 +166,10 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         Flag surrogates whose projected time per iteration exceeds this.
     backtest, plan : bool
         Run the acquisition backtest and the next-campaign plan (when available).
+    model_time_limit : float or None
+        Seconds a user's model (``module:Class``) may take over all of its validation
+        folds; it runs in a process of its own that is killed after that, and is then
+        recorded as failed.  None runs user models in the task grid like the built-ins.
 
     Returns
     -------
@@ -194,7 +199,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     X_enc = {enc: trials.features(enc) for enc in set(encodings.values())}
     folds = list(scheme.splitter.split(X_enc[next(iter(X_enc))], y, groups))
     t_cv = time.perf_counter()
-    cv = _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, quick)
+    cv = _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, quick,
+                         time_limit=model_time_limit)
     t_cv = time.perf_counter() - t_cv
     preds, failures, fit_s, pred_s = cv["preds"], cv["failures"], cv["fit_s"], cv["pred_s"]
     noise, info, tested, fold_of = cv["noise"], cv["info"], cv["tested"], cv["fold_of"]
@@ -213,7 +219,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
                                n_rows=trials.n_used, seed=seed, quick=quick)
             f2 = list(sc.splitter.split(X_enc[next(iter(X_enc))], y, groups))
             cv2 = _cross_validate(executor, working, encodings, X_enc, y, groups, f2,
-                                  seed, quick, tag=other)
+                                  seed, quick, tag=other, time_limit=model_time_limit)
             by_scheme[other] = {n: score_predictions(p["y"], p["mean"], p["std"])
                                 for n, p in cv2["preds"].items()}
             secondary.append({"scheme": other, "description": sc.splitter.describe(),
@@ -450,8 +456,26 @@ def _other_schemes(primary: str, trials) -> list[str]:
     return out
 
 
+def _all_folds(tasks) -> list[dict]:
+    return [_fit_predict_task(*t) for t in tasks]
+
+
+def _isolated_folds(tasks, time_limit: float) -> list[dict]:
+    """One user model's folds in a killable process; on a time-out or a crash, every
+    fold is recorded as failed with the reason."""
+    from .execution import IsolatedFailure, run_isolated
+
+    try:
+        return run_isolated(_all_folds, (tasks,), time_limit)
+    except IsolatedFailure as exc:
+        return [{"surrogate": t[0], "fold": t[1], "test": np.asarray(t[6]),
+                 "error": f"user model stopped: {exc}",
+                 "fit_seconds": np.nan, "predict_seconds": np.nan, "noise_std": None,
+                 "info": {}} for t in tasks]
+
+
 def _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, quick,
-                    tag: str | None = None) -> dict:
+                    tag: str | None = None, time_limit: float | None = None) -> dict:
     """Run the (surrogate × fold) grid on ``folds`` and pool each model's predictions."""
     tasks = []
     for n in names:
@@ -459,8 +483,20 @@ def _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, q
             ident = ("cv", n, f) if tag is None else ("cv", tag, n, f)
             tasks.append((n, f, X_enc[encodings[n]], y, groups, train, test,
                           task_seed(seed, *ident), quick, {}))
-    results = executor.map(_fit_predict_task, tasks,
-                           label="cross-validation" + ("" if tag is None else f" ({tag})"))
+    label = "cross-validation" + ("" if tag is None else f" ({tag})")
+    if time_limit is None:
+        results = executor.map(_fit_predict_task, tasks, label=label)
+    else:
+        # A user's model runs all its folds in a process of its own, killed after the
+        # time limit, so a hang or a crash costs at most that (execution.run_isolated).
+        own = [t for t in tasks if ":" not in t[0]]
+        users = [n for n in names if ":" in n]
+        grouped = [([t for t in tasks if t[0] == n], time_limit) for n in users]
+        got = executor.map(_fit_predict_task, own, label=label) if own else []
+        got += [r for rs in executor.map(_isolated_folds, grouped, label=label + ", user models")
+                for r in rs] if grouped else []
+        by_key = {(r["surrogate"], r["fold"]): r for r in got}
+        results = [by_key[(t[0], t[1])] for t in tasks]
     tested = np.unique(np.concatenate([t for _, t in folds]))
     fold_of = np.full(len(y), -1)
     for f, (_, test) in enumerate(folds):

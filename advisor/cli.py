@@ -2,7 +2,9 @@
 
 Exit status 0 on success; 2 for bad input or usage (one line on stderr starting
 ``error:``); 1 for an internal failure (one line on stderr, details in
-``DIR/advisor-error.log``).
+``DIR/advisor-error.log``) or an output that cannot be written; 128 + the signal's
+number when SIGINT (130), SIGTERM (143) or SIGHUP (129) stops the run, after its worker
+processes are ended and with nothing new written.
 """
 
 from __future__ import annotations
@@ -10,15 +12,19 @@ from __future__ import annotations
 import argparse
 import os
 import shlex
+import signal
 import sys
 import traceback
-from contextlib import ExitStack
 from pathlib import Path
 
-from .errors import AdvisorError, InputError, UsageError
+from .errors import AdvisorError, InputError, Interrupted, OutputError, UsageError
 from .logs import DEFAULT_SUCCESS
 
-__all__ = ["main", "build_parser"]
+__all__ = ["main", "entry", "build_parser"]
+
+#: Signals that stop a run (SIGHUP where the platform has it).
+_STOP_SIGNALS = tuple(getattr(signal, n) for n in ("SIGINT", "SIGTERM", "SIGHUP")
+                      if hasattr(signal, n))
 
 
 class _Parser(argparse.ArgumentParser):
@@ -68,6 +74,10 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--max-fit-seconds", type=float,
                    help="flag surrogates whose projected time per iteration exceeds this")
     a.add_argument("--jobs", type=int, help="local worker processes (default: all cores)")
+    a.add_argument("--model-time-limit", type=float, default=600.0, metavar="SECONDS",
+                   help="wall-clock limit for each user model (--surrogate) over all of "
+                        "its validation folds; a model over it is recorded as failed "
+                        "(default 600)")
     a.add_argument("--scheduler", help="Dask scheduler address, e.g. tcp://10.0.0.5:8786")
     a.add_argument("--no-backtest", action="store_true", help="skip the acquisition backtest")
     a.add_argument("--no-pdf", action="store_true", help="write JSON and CSV only")
@@ -112,6 +122,10 @@ def _validate_numbers(args):
                              fix=f"pass {flag} {max(low, 1)} or more")
     if args.max_fit_seconds is not None and not args.max_fit_seconds > 0:
         raise UsageError("--max-fit-seconds must be positive", fix="pass e.g. --max-fit-seconds 30")
+    limit = getattr(args, "model_time_limit", None)
+    if limit is not None and not (limit > 0 and limit < float("inf")):
+        raise UsageError(f"--model-time-limit must be a positive number of seconds, got {limit}",
+                         fix="pass e.g. --model-time-limit 300")
 
 
 def _progress(quiet: bool):
@@ -138,7 +152,8 @@ def _assess(args) -> int:
     from . import load_trials
     from .assessment import assess
     from .execution import default_jobs
-    from .report.export import atomic_path, write_json, write_scores_csv
+    from .report.export import write_json, write_scores_csv
+    from .report.publish import ReportSet
 
     _validate_numbers(args)
     out = _check_out_dir(Path(args.out))
@@ -168,29 +183,27 @@ def _assess(args) -> int:
                    scheduler=args.scheduler, acquisitions=args.acquisitions,
                    budget=args.budget, batch=args.batch, propose=args.propose,
                    max_fit_seconds=args.max_fit_seconds, backtest=not args.no_backtest,
-                   progress=tick, command=command)
+                   progress=tick, command=command,
+                   model_time_limit=args.model_time_limit)
     finally:
         if bar is not None:
             bar.stop()
     stem = Path(args.log).stem
     payload = a.to_dict()
-    # Write every output to a temporary file first and rename them all only when all
-    # are complete, so a failure leaves no half-written or mismatched set of files.
-    with ExitStack() as stack:
-        json_tmp = stack.enter_context(atomic_path(out / f"{stem}.json"))
-        csv_tmp = stack.enter_context(atomic_path(out / f"{stem}.csv"))
-        write_json(payload, json_tmp)
-        write_scores_csv(a, csv_tmp)
-        written = [out / f"{stem}.json", out / f"{stem}.csv"]
+    # Every output goes to a temporary file; only when all are complete are they renamed
+    # into place together, under the folder's lock (advisor/report/publish.py).
+    dests = {k: out / f"{stem}{suffix}" for k, suffix in
+             (("json", ".json"), ("csv", ".csv"), ("proposals", "-proposals.csv"),
+              ("pdf", ".pdf"))}
+    with ReportSet(out, family=list(dests.values())) as report:
+        write_json(payload, report.path(dests["json"]))
+        write_scores_csv(a, report.path(dests["csv"]))
         if a.proposals is not None and len(a.proposals):
-            prop_tmp = stack.enter_context(atomic_path(out / f"{stem}-proposals.csv"))
-            a.proposals.to_csv(prop_tmp, index=False)
-            written.append(out / f"{stem}-proposals.csv")
+            a.proposals.to_csv(report.path(dests["proposals"]), index=False)
         if not args.no_pdf:
             from .report.pdf import write_pdf
-            pdf_tmp = stack.enter_context(atomic_path(out / f"{stem}.pdf"))
-            write_pdf(a, pdf_tmp)
-            written.append(out / f"{stem}.pdf")
+            write_pdf(a, report.path(dests["pdf"]))
+    written = report.published
     if not args.quiet:
         from .report.terminal import print_assessment
         print_assessment(a, payload, written)
@@ -204,10 +217,28 @@ def _list_surrogates() -> int:
     return 0
 
 
+def _raise_interrupted(signum, frame):
+    raise Interrupted(signum)
+
+
+def _signal_name(signum: int) -> str:
+    try:
+        return signal.Signals(signum).name
+    except ValueError:
+        return f"signal {signum}"
+
+
 def main(argv: list[str] | None = None) -> int:
-    """Run the CLI; return the exit status (0 ok, 2 bad input/usage, 1 internal)."""
+    """Run the CLI; return the exit status (0 ok, 2 bad input/usage, 1 internal failure
+    or unwritable output, 128 + signal number when stopped by SIGINT/SIGTERM/SIGHUP)."""
     argv = sys.argv[1:] if argv is None else list(argv)
     out_dir = Path("reports")
+    previous = {}
+    try:
+        for sig in _STOP_SIGNALS:
+            previous[sig] = signal.signal(sig, _raise_interrupted)
+    except ValueError:  # not the main thread: leave signal handling to the caller
+        previous = {}
     try:
         parser = build_parser()
         if not argv:
@@ -221,6 +252,13 @@ def main(argv: list[str] | None = None) -> int:
             return _list_surrogates()
         out_dir = Path(args.out)
         return _assess(args)
+    except Interrupted as exc:
+        return _interrupted(exc.signum)
+    except KeyboardInterrupt:
+        return _interrupted(signal.SIGINT)
+    except OutputError as exc:
+        print(f"error: {exc.one_line()}", file=sys.stderr)
+        return exc.exit_code
     except AdvisorError as exc:
         if exc.exit_code == 2:
             print(f"error: {exc.one_line()}", file=sys.stderr)
@@ -228,11 +266,34 @@ def main(argv: list[str] | None = None) -> int:
         return _internal(exc, out_dir)
     except SystemExit as exc:  # argparse's --help
         return int(exc.code or 0)
-    except KeyboardInterrupt:
-        print("error: interrupted; no output was written", file=sys.stderr)
-        return 1
     except Exception as exc:  # last resort: one line, details to a log file
         return _internal(exc, out_dir)
+    finally:
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+
+
+def _interrupted(signum: int) -> int:
+    """End the worker processes, say so in one line, return 128 + signum."""
+    from .execution import stop_workers
+
+    for sig in _STOP_SIGNALS:  # a second signal must not interrupt the cleanup
+        signal.signal(sig, signal.SIG_IGN)
+    stop_workers()
+    print(f"error: interrupted by {_signal_name(signum)}; no output was written",
+          file=sys.stderr)
+    return 128 + int(signum)
+
+
+def entry() -> None:
+    """Console-script entry: :func:`main`, then exit.  After a signal the process ends at
+    once (``os._exit``), so no leftover worker-pool thread can delay the exit."""
+    code = main()
+    if code >= 128:
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
+    raise SystemExit(code)
 
 
 def _internal(exc: BaseException, out_dir: Path) -> int:

@@ -7,7 +7,8 @@ wrong inside the tool exits 1.
 
 from __future__ import annotations
 
-__all__ = ["AdvisorError", "InputError", "UsageError", "SurrogateError", "InternalError"]
+__all__ = ["AdvisorError", "InputError", "UsageError", "SurrogateError", "InternalError",
+           "OutputError", "Interrupted"]
 
 
 class AdvisorError(Exception):
@@ -65,3 +66,31 @@ class SurrogateError(AdvisorError):
 
 class InternalError(AdvisorError):
     """A bug or environment failure inside the tool (exit 1)."""
+
+
+class OutputError(AdvisorError):
+    """An output could not be written: disk full, folder unwritable, folder busy (exit 1).
+
+    Not the user's input and not a bug: printed as one ``error:`` line with a fix, and no
+    error log is written (the folder is the problem).
+    """
+
+    def __init__(self, message: str, *, fix: str | None = None):
+        self.fix = fix
+        super().__init__(f"{message}; fix: {fix}" if fix else message)
+
+
+class Interrupted(BaseException):
+    """The run was stopped by a signal (SIGINT, SIGTERM or SIGHUP): exit 128 + signum.
+
+    A ``BaseException`` like ``KeyboardInterrupt``, so that no ``except Exception`` on
+    the way (a surrogate task's own error handling, say) swallows it.
+    """
+
+    def __init__(self, signum: int):
+        self.signum = int(signum)
+        super().__init__(signum)
+
+    @property
+    def exit_code(self) -> int:
+        return 128 + self.signum

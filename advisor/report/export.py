@@ -109,7 +109,14 @@ def atomic_path(dest: Path):
     """Yield a temporary path beside ``dest``; rename it onto ``dest`` on success."""
     dest = Path(dest)
     fd, tmp = tempfile.mkstemp(prefix=f".{dest.name}.", suffix=".tmp", dir=dest.parent)
-    os.close(fd)
+    try:
+        # mkstemp makes the file private (0600) and a rename keeps the mode: give it the
+        # mode any new file gets under the user's umask, so colleagues can read it.
+        mask = os.umask(0)
+        os.umask(mask)
+        os.fchmod(fd, 0o666 & ~mask)
+    finally:
+        os.close(fd)
     try:
         yield Path(tmp)
         os.replace(tmp, dest)
