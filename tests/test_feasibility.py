@@ -94,7 +94,7 @@ def test_weighting_keeps_picks_out_of_the_failure_region(tmp_path):
     # The objective's minimum (x1 = 0.9) lies inside the failure region (x1 > 0.65).
     # Unweighted EI sends most of its top candidates there; EI x P(success) with the
     # exclusion below MIN_SUCCESS keeps at most 20% of them there.  Stated shares over 3
-    # seeded logs (measured: 100% unweighted, 0-10% weighted).
+    # seeded logs (measured: 100% unweighted, 0% weighted on each).
     inside_w, inside_u = [], []
     for seed in range(3):
         t = _log_with_region(tmp_path, seed=seed)
