@@ -68,6 +68,7 @@ class Assessment:
     backtest: dict | None = None
     planning: dict | None = None
     proposals: pd.DataFrame | None = None
+    feasibility: dict | None = None
     timing: dict = field(default_factory=dict)
     versions: dict = field(default_factory=dict)
     command: str | None = None
@@ -267,6 +268,11 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
                                         propose=propose, max_fit_seconds=max_fit_seconds,
                                         executor=executor)
     t_plan = time.perf_counter() - t_plan
+    feasibility_out = _feasibility(trials, scheme.name, seed=seed, quick=quick,
+                                   executor=executor)
+    if proposals is not None and feasibility_out and feasibility_out.get("_model"):
+        proposals = _with_success_probability(trials, proposals, feasibility_out)
+        planning_out["proposals"]["rows"] = proposals.to_dict(orient="records")
     table = ranking.table
     noise_out = {"replicates": _replicate_noise(trials), "fitted": noise}
     a = Assessment(
@@ -281,7 +287,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         fold_metrics=pd.DataFrame(fold_rows), metrics=metrics, intervals=intervals,
         failures=failures, recalibration=recal, ranking=table, recommendation=rec,
         reasons=ranking.reasons, noise=noise_out, model_info=info, backtest=backtest_out,
-        planning=planning_out, proposals=proposals,
+        planning=planning_out, proposals=proposals, feasibility=feasibility_out,
         versions=_package_versions(), command=command,
         created=_dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
         ranking_rule=ranking.method)
@@ -289,6 +295,32 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
                 "planning_seconds": t_plan,
                 "total_seconds": time.perf_counter() - t_start}
     return a
+
+
+def _feasibility(trials, scheme: str, *, seed, quick, executor):
+    """The model of trial failure (``None`` when no trial failed); never fatal."""
+    from .feasibility import assess_feasibility
+
+    if trials.n_failed == 0:
+        return None
+    try:
+        return assess_feasibility(trials, scheme=scheme, seed=seed, quick=quick,
+                                  executor=executor)
+    except Exception as exc:  # a report section failing must not sink the assessment
+        return {"error": f"{type(exc).__name__}: {exc}".splitlines()[0][:300],
+                "skipped": "the failure model could not be fitted", "chosen": None}
+
+
+def _with_success_probability(trials, proposals: pd.DataFrame, feas: dict) -> pd.DataFrame:
+    """The proposals table with each setting's predicted probability of success."""
+    from .feasibility import LOW_SUCCESS
+
+    out = proposals.copy()
+    ps = feas["_model"].success_probability(out[trials.params])
+    out["p_success"] = ps
+    low = [i + 1 for i, v in enumerate(ps) if v < LOW_SUCCESS]
+    feas["proposals_below_threshold"] = low
+    return out
 
 
 def _recommendation(ranking, backtest_out) -> dict:

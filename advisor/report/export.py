@@ -94,6 +94,8 @@ def assessment_to_dict(a) -> dict:
         "ranking_rule": a.ranking_rule,
         "backtest": a.backtest,
         "planning": a.planning,
+        "feasibility": (None if getattr(a, "feasibility", None) is None else
+                        {k: v for k, v in a.feasibility.items() if not k.startswith("_")}),
         "seed": a.seed,
         "quick": a.quick,
         "command": a.command,

@@ -75,6 +75,7 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
         if r.get("reasons"):
             con.print(f"  {r['surrogate']}: {escape(r['reasons'][0])}")
     _print_plan(con, d)
+    _print_feasibility(con, d)
     con.print(f"[dim]{CAUTION}[/]")
     for w in written:
         con.print(f"wrote {w}")
@@ -127,3 +128,20 @@ def _print_plan(con, d) -> None:
                   "proposals CSV (predicted mean and 90% interval beside each)")
     for key, err in (plan.get("errors") or {}).items():
         con.print(f"  - {key} did not run: {escape(err)}")
+
+
+def _print_feasibility(con, d) -> None:
+    """One line on the model of trial failure."""
+    f = d.get("feasibility")
+    if not f:
+        return
+    if f.get("skipped"):
+        con.print(f"failure model: skipped ({escape(f['skipped'])})")
+        return
+    top = [p["name"] for p in (f.get("parameters") or [])[:2] if p["importance"] > 0]
+    low = f.get("proposals_below_threshold") or []
+    con.print(f"failure model: {f['chosen']} ({escape(f.get('evidence', ''))}); "
+              f"{f['failed']} of {f['trials']} trials failed"
+              + (f"; failures depend most on {', '.join(top)}" if top else "")
+              + (f"; proposals {', '.join(map(str, low))} have P(success) below "
+                 f"{f['low_success_threshold']:.0%}" if low else ""))
