@@ -11,7 +11,8 @@ CRPS hardly does; Gneiting & Raftery 2007, §4.2 and §7 on the two scores' sens
 so the report says so rather than let one score decide silently.
 
 The thresholds are common practice, not from a source: a value held by at least 10% of
-the trials (and at least 5 of them) is a plateau; a bounded objective is "near" a bound
+the trials (and at least 5 of them) at the highest or lowest value logged, or by 25%
+anywhere (ties are common on discrete measurements), is a plateau; a bounded objective is "near" a bound
 when 10% of the trials lie within 5% of the observed range of it; a model is flagged when
 its held-out predictive distributions put on average more than 5% of their probability
 beyond a bound the data respect.
@@ -27,6 +28,7 @@ __all__ = ["objective_shape", "PLATEAU_SHARE", "OUTSIDE_MASS"]
 
 PLATEAU_SHARE = 0.10
 PLATEAU_MIN_TRIALS = 5
+INNER_PLATEAU_SHARE = 0.25
 NEAR_SHARE = 0.10
 NEAR_WIDTH = 0.05
 OUTSIDE_MASS = 0.05
@@ -73,11 +75,14 @@ def objective_shape(y_raw, *, predictions: pd.DataFrame | None = None,
     values, counts = np.unique(np.round(y / tol) * tol if tol > 0 else y, return_counts=True)
     k = int(np.argmax(counts))
     share = counts[k] / len(y)
-    if counts[k] >= PLATEAU_MIN_TRIALS and share >= PLATEAU_SHARE and span > 0:
-        v = float(values[k])
-        where = ("the highest value logged" if np.isclose(v, y.max(), atol=tol)
-                 else "the lowest value logged" if np.isclose(v, y.min(), atol=tol)
-                 else "inside the logged range")
+    v = float(values[k])
+    where = ("the highest value logged" if np.isclose(v, y.max(), atol=tol)
+             else "the lowest value logged" if np.isclose(v, y.min(), atol=tol)
+             else "inside the logged range")
+    # Inside the range, ties are common on discrete measurements (an error rate over a
+    # few hundred rows), so a plateau there needs a larger share.
+    need = PLATEAU_SHARE if where != "inside the logged range" else INNER_PLATEAU_SHARE
+    if counts[k] >= PLATEAU_MIN_TRIALS and share >= need and span > 0:
         out["plateau"] = {"value": v, "trials": int(counts[k]), "share": float(share),
                           "position": where}
         out["notes"].append(

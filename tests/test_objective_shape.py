@@ -60,3 +60,10 @@ def test_model_inside_bounds_not_flagged():
     out = objective_shape(y_raw, predictions=pred)
     # 0.2 is 10 std from 0: Phi(-10) ~ 8e-24, far below the 5% threshold.
     assert out["model_flags"]["m"]["flag"] is False
+
+
+def test_ties_inside_the_range_of_a_discrete_measurement_are_not_a_plateau():
+    # Error rates over 59 rows take few values; 12% ties in the middle are not a ceiling.
+    y = np.concatenate([np.full(12, 3 / 59), np.arange(1, 45) / 59 / 100,
+                        np.arange(1, 45) / 59 / 10 + 0.2])
+    assert objective_shape(y)["plateau"] is None
