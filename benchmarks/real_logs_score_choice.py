@@ -11,7 +11,8 @@ Rules compared (each picks one candidate from its cross-validated scores):
   per point of the best NLL (d = 0.1, 0.25, 0.5);
 * ``nll_crps_guard_r``: the lowest NLL among the models whose CRPS is within a factor
   ``1 + r`` of the best CRPS (r = 0.05, 0.10);
-* ``advisor``: the advisor's own recommendation (its default scheme and rule).
+* ``advisor``: the advisor's own recommendation (its default scheme and rule);
+* ``always_<name>``: one fixed candidate everywhere (the reference a rule must beat).
 
 Schemes: each single scheme in the results (``forward``, ``campaign``, ``kfold``), and
 ``forward+campaign`` = the mean of the two schemes' scores for each model (both are
@@ -88,11 +89,18 @@ def regrets(result: dict, pick: str | None) -> dict | None:
 
 def tabulate(results: list[dict]) -> list[dict]:
     rows = []
-    combos = [(sc, r) for sc in SCHEMES for r in RULES] + [("default", "advisor")]
+    names = list(dict.fromkeys(n for res in results for n in res["candidates"]))
+    combos = ([(sc, r) for sc in SCHEMES for r in RULES] + [("default", "advisor")]
+              + [("none", f"always_{n}") for n in names])
     for scheme, rule in combos:
         per = []
         for res in results:
-            pick = res["pick"] if rule == "advisor" else _pick(rule, _scores(res["cv"], scheme))
+            if rule == "advisor":
+                pick = res["pick"]
+            elif rule.startswith("always_"):
+                pick = rule[len("always_"):]
+            else:
+                pick = _pick(rule, _scores(res["cv"], scheme))
             g = regrets(res, pick)
             if g is not None:
                 per.append((res["problem"], res["seed"], pick, g))
