@@ -76,8 +76,9 @@ RULES = ["nll", "crps", "rank_sum", "crps_nll_guard_0.1", "crps_nll_guard_0.25",
 SCHEMES = ["forward", "campaign", "kfold", "forward+campaign"]
 
 
-def regrets(result: dict, pick: str | None) -> dict | None:
-    truth = {n: v for n, v in result["truth"].items() if v.get("nll") is not None}
+def regrets(result: dict, pick: str | None, truth_key: str = "truth") -> dict | None:
+    truth = {n: v for n, v in (result.get(truth_key) or {}).items()
+             if v.get("nll") is not None}
     if pick not in truth:
         return None
     sd = max(result.get("y_std", 1.0), 1e-12)
@@ -87,7 +88,7 @@ def regrets(result: dict, pick: str | None) -> dict | None:
             "top2": pick in ranked[:2]}
 
 
-def tabulate(results: list[dict]) -> list[dict]:
+def tabulate(results: list[dict], truth_key: str = "truth") -> list[dict]:
     rows = []
     names = list(dict.fromkeys(n for res in results for n in res["candidates"]))
     combos = ([(sc, r) for sc in SCHEMES for r in RULES] + [("default", "advisor")]
@@ -101,7 +102,7 @@ def tabulate(results: list[dict]) -> list[dict]:
                 pick = rule[len("always_"):]
             else:
                 pick = _pick(rule, _scores(res["cv"], scheme))
-            g = regrets(res, pick)
+            g = regrets(res, pick, truth_key)
             if g is not None:
                 per.append((res["problem"], res["seed"], pick, g))
         if not per:
@@ -109,7 +110,7 @@ def tabulate(results: list[dict]) -> list[dict]:
         by_problem = {}
         for p, _, _, g in per:
             by_problem.setdefault(p, []).append(g["nll"])
-        rows.append({"scheme": scheme, "rule": rule, "cases": len(per),
+        rows.append({"truth": truth_key, "scheme": scheme, "rule": rule, "cases": len(per),
                      "mean_regret_nll": float(np.mean([g["nll"] for *_, g in per])),
                      "max_regret_nll": float(np.max([g["nll"] for *_, g in per])),
                      "mean_regret_crps_sd": float(np.mean([g["crps"] for *_, g in per])),
@@ -121,15 +122,23 @@ def tabulate(results: list[dict]) -> list[dict]:
 
 def main():
     src = json.loads((RESULTS / "real_logs.json").read_text())
-    rows = tabulate(src["results"])
-    (RESULTS / "real_logs_score_choice.json").write_text(json.dumps(
-        {"source": "real_logs.json", "n_per_campaign": src["n_per_campaign"],
-         "seeds": src["seeds"], "rules": rows}, indent=1))
-    print(f"{'scheme':17s} {'rule':20s} {'cases':>5s} {'NLL regret':>10s} {'max':>6s} "
-          f"{'CRPS/sd':>8s} {'top-2':>6s}")
-    for r in sorted(rows, key=lambda r: r["mean_regret_nll"]):
-        print(f"{r['scheme']:17s} {r['rule']:20s} {r['cases']:5d} {r['mean_regret_nll']:10.3f} "
-              f"{r['max_regret_nll']:6.2f} {r['mean_regret_crps_sd']:8.3f} {r['top2_share']:6.2f}")
+    out = {"source": "real_logs.json", "n_per_campaign": src["n_per_campaign"],
+           "seeds": src["seeds"], "truths": {}}
+    for key, what in (("truth", "fitted on the past log, scored on the new campaigns"),
+                      ("truth_within", "fitted on the past log + each new campaign's "
+                                       "first half, scored on the second halves")):
+        rows = tabulate(src["results"], key)
+        if not rows:
+            continue
+        out["truths"][key] = {"description": what, "rules": rows}
+        print(f"\n## {key}: {what}")
+        print(f"{'scheme':17s} {'rule':22s} {'cases':>5s} {'NLL regret':>10s} {'max':>6s} "
+              f"{'CRPS/sd':>8s} {'top-2':>6s}")
+        for r in sorted(rows, key=lambda r: r["mean_regret_nll"]):
+            print(f"{r['scheme']:17s} {r['rule']:22s} {r['cases']:5d} "
+                  f"{r['mean_regret_nll']:10.3f} {r['max_regret_nll']:6.2f} "
+                  f"{r['mean_regret_crps_sd']:8.3f} {r['top2_share']:6.2f}")
+    (RESULTS / "real_logs_score_choice.json").write_text(json.dumps(out, indent=1))
 
 
 if __name__ == "__main__":

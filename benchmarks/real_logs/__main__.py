@@ -26,7 +26,8 @@ def run(n_per_campaign: int, seeds, schemes, problems=None) -> dict:
     for name in problems or PROBLEMS:
         for seed in seeds:
             t0 = time.perf_counter()
-            m = measure_problem(name, n_per_campaign, seed, schemes=schemes)
+            m = measure_problem(name, n_per_campaign, seed, schemes=schemes,
+                                within_campaign=bool(schemes))
             m["seconds"] = time.perf_counter() - t0
             rows.append(m)
             s = m["summary"]

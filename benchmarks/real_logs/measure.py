@@ -37,15 +37,22 @@ def _load(problem, frame, folder: Path):
                                order="trial")
 
 
-def _truth(trials, new_frame, names, seed: int, sign: float) -> dict:
+def _truth(trials, new_frame, names, seed: int, sign: float, extra_frame=None,
+           tag: str = "truth") -> dict:
+    """Fit on the past log (plus ``extra_frame``, the new campaigns' first trials, when
+    given) and score on ``new_frame``."""
     y_new = sign * new_frame[trials.objective].to_numpy(float)
     out = {}
     for n in names:
         try:
-            model = advisor.make_surrogate(n, seed=task_seed(seed, "truth", n), quick=True)
+            model = advisor.make_surrogate(n, seed=task_seed(seed, tag, n), quick=True)
             enc = getattr(model, "input_encoding", "onehot")
             enc = enc if enc in ("onehot", "ordinal") else "onehot"
-            model.fit(trials.features(enc), trials.y)
+            X, y = trials.features(enc), trials.y
+            if extra_frame is not None:
+                X = np.vstack([X, trials.space.encode(extra_frame, enc)])
+                y = np.concatenate([y, sign * extra_frame[trials.objective].to_numpy(float)])
+            model.fit(X, y)
             mean, std = model.predict(trials.space.encode(new_frame, enc))
             s = advisor.score_predictions(y_new, np.asarray(mean), np.asarray(std))
             out[n] = {"nll": float(s["nll"]), "crps": float(s["crps"])}
@@ -69,7 +76,8 @@ def _f(v):
 
 
 def measure_problem(name: str, n_per_campaign: int, seed: int = 0,
-                    schemes=("campaign", "kfold"), names=None) -> dict:
+                    schemes=("campaign", "kfold"), names=None,
+                    within_campaign: bool = False) -> dict:
     """Everything the tables need for one problem, one size, one seed."""
     problem = PROBLEMS[name]
     names = list(names) if names else advisor.surrogate_names()
@@ -79,6 +87,15 @@ def measure_problem(name: str, n_per_campaign: int, seed: int = 0,
     with tempfile.TemporaryDirectory() as tmp:
         trials = _load(problem, past, Path(tmp))
         truth = _truth(trials, new, names, seed, sign)
+        within = None
+        if within_campaign:
+            # In use, the surrogate is refitted once the new campaign has begun: fit on
+            # the past log plus each new campaign's first half, score on the second.
+            first = new.groupby("campaign", group_keys=False).apply(
+                lambda g: g[g["trial"] <= n_per_campaign // 2])
+            second = new.drop(first.index)
+            within = _truth(trials, second, names, seed, sign, extra_frame=first,
+                            tag="truth_within")
         primary = _cv(trials, names, seed, "auto")
         cv = {primary["scheme"]: {n: primary["scores"][n] for n in names}}
         for s in schemes:
@@ -87,7 +104,7 @@ def measure_problem(name: str, n_per_campaign: int, seed: int = 0,
     out = {"problem": name, "description": problem.description, "seed": seed,
            "n_per_campaign": n_per_campaign, "n_past": len(past), "n_new": len(new),
            "y_std": float(np.std(past[problem.objective].to_numpy(float))),
-           "candidates": names, "truth": truth, "cv": cv,
+           "candidates": names, "truth": truth, "truth_within": within, "cv": cv,
            "pick": primary["pick"], "pick_scheme": primary["scheme"],
            "ranking": primary["ranking"], "notes": primary["notes"]}
     out["summary"] = summarize(out)
