@@ -112,6 +112,8 @@ def tabulate(results: list[dict], truth_key: str = "truth") -> list[dict]:
             by_problem.setdefault(p, []).append(g["nll"])
         rows.append({"truth": truth_key, "scheme": scheme, "rule": rule, "cases": len(per),
                      "mean_regret_nll": float(np.mean([g["nll"] for *_, g in per])),
+                     "se_regret_nll": float(np.std([g["nll"] for *_, g in per], ddof=1)
+                                            / np.sqrt(len(per))) if len(per) > 1 else None,
                      "max_regret_nll": float(np.max([g["nll"] for *_, g in per])),
                      "mean_regret_crps_sd": float(np.mean([g["crps"] for *_, g in per])),
                      "top2_share": float(np.mean([g["top2"] for *_, g in per])),
@@ -132,13 +134,38 @@ def main():
             continue
         out["truths"][key] = {"description": what, "rules": rows}
         print(f"\n## {key}: {what}")
-        print(f"{'scheme':17s} {'rule':22s} {'cases':>5s} {'NLL regret':>10s} {'max':>6s} "
+        print(f"{'scheme':17s} {'rule':22s} {'cases':>5s} {'NLL regret':>10s} {'±se':>5s} {'max':>6s} "
               f"{'CRPS/sd':>8s} {'top-2':>6s}")
         for r in sorted(rows, key=lambda r: r["mean_regret_nll"]):
             print(f"{r['scheme']:17s} {r['rule']:22s} {r['cases']:5d} "
-                  f"{r['mean_regret_nll']:10.3f} {r['max_regret_nll']:6.2f} "
+                  f"{r['mean_regret_nll']:10.3f} {r['se_regret_nll'] or 0:5.2f} "
+                  f"{r['max_regret_nll']:6.2f} "
                   f"{r['mean_regret_crps_sd']:8.3f} {r['top2_share']:6.2f}")
+    out["truth_seed_spread"] = seed_spread(src["results"])
+    print("\nspread of the true next-campaign NLL over model seeds (same logs), per problem:")
+    for p, v in out["truth_seed_spread"].items():
+        print(f"  {p:14s} mean sd {v['mean_sd']:.2f}  largest {v['largest']} ({v['max_sd']:.2f})")
     (RESULTS / "real_logs_score_choice.json").write_text(json.dumps(out, indent=1))
+
+
+def seed_spread(results: list[dict]) -> dict:
+    """How much each candidate's true NLL moves with its own training seed alone (the
+    logs are the same for every seed): the noise floor under any rule's regret."""
+    out = {}
+    for p in dict.fromkeys(r["problem"] for r in results):
+        rs = [r for r in results if r["problem"] == p]
+        if len(rs) < 2:
+            continue
+        sds = {}
+        for n in rs[0]["candidates"]:
+            v = [r["truth"][n]["nll"] for r in rs if r["truth"].get(n, {}).get("nll") is not None]
+            if len(v) > 1:
+                sds[n] = float(np.std(v, ddof=1))
+        if sds:
+            big = max(sds, key=sds.get)
+            out[p] = {"sd_by_model": sds, "mean_sd": float(np.mean(list(sds.values()))),
+                      "largest": big, "max_sd": sds[big]}
+    return out
 
 
 if __name__ == "__main__":
