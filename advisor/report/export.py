@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..objective_shape import objective_shape
 from ..scoring import METRIC_KEYS
 from ..surrogates import describe_surrogate
 
@@ -103,6 +104,11 @@ def assessment_to_dict(a) -> dict:
         "created": a.created,
         "timing": a.timing,
     }
+    # Plateaus and bounded objectives: noted in the data section, models flagged.
+    shape = objective_shape(t.y_raw, predictions=a.predictions, sign=t.sign,
+                            objective=t.objective)
+    out["notes"] = out["notes"] + shape["notes"]
+    out["objective_shape"] = shape
     return plain(out)
 
 
