@@ -136,7 +136,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
            jobs: int = 1, scheduler: str | None = None,
            acquisitions=None, budget: int | None = None, batch: int = 1,
            propose: int = 0, max_fit_seconds: float | None = None,
-           backtest: bool = True, plan: bool = True,
+           backtest: bool = True, plan: bool = True, freeze: bool = False,
            progress: Callable[[int, int, str], None] | None = None,
            command: str | None = None) -> Assessment:
     """Cross-validate every candidate surrogate on ``trials`` and recommend one.
@@ -165,6 +165,10 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         Flag surrogates whose projected time per iteration exceeds this.
     backtest, plan : bool
         Run the acquisition backtest and the next-campaign plan (when available).
+    freeze : bool
+        Hold the parameters flagged as freeze candidates at their best logged value in
+        the proposals (default False: every parameter varies, and the candidates are
+        only reported).
 
     Returns
     -------
@@ -259,7 +263,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
                                                             if n not in failures],
                                         seed=seed, quick=quick, budget=budget,
                                         propose=propose, max_fit_seconds=max_fit_seconds,
-                                        executor=executor)
+                                        executor=executor, freeze=freeze)
     t_plan = time.perf_counter() - t_plan
     table = ranking.table
     noise_out = {"replicates": _replicate_noise(trials), "fitted": noise}
@@ -378,7 +382,8 @@ def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, e
                         make=_quick_model, plan=plan_for(quick))
 
 
-def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor):
+def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor,
+          freeze=False):
     """Relevance, learning curve and cost projection for the recommended surrogate, and
     the proposed first batch.  Each part that fails is recorded, never fatal."""
     from . import planning
@@ -406,13 +411,22 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         max_fit_seconds=max_fit_seconds, repeats=1))
     proposals = None
     if propose:
-        frozen = {p["name"]: p["freeze_value"] for p in
-                  ((out.get("relevance") or {}).get("parameters") or []) if p.get("freeze")}
+        candidates = {p["name"]: p["freeze_value"] for p in
+                      ((out.get("relevance") or {}).get("parameters") or [])
+                      if p.get("freeze")}
+        frozen = candidates if freeze else {}
         setting = AcquisitionSetting(rec["acquisition"]["name"], rec["acquisition"]["params"])
         try:
             proposals = planning.propose_batch(trials, leader, setting, propose, seed=seed,
                                                quick=quick, frozen=frozen or None)
+            batch = dict(proposals.attrs.get("batch") or {})
+            proposals.attrs = {}  # the payload below carries it; keep the frame plain
             out["proposals"] = {"k": int(propose), "frozen": frozen,
+                                "freeze_candidates": candidates,
+                                "freeze_applied": bool(freeze),
+                                "batch_method": batch.get("method"),
+                                "batch_reference": batch.get("reference"),
+                                "batch": batch,
                                 "rows": proposals.to_dict(orient="records")}
         except UsageError:
             raise
