@@ -266,9 +266,9 @@ def _wilcoxon_less(a, b):
 
 
 CONFIGS = {
-    "small": dict(functions=["branin", "hartmann3"], reps=6, budget=20, n_campaigns=3,
+    "small": dict(functions=["branin", "hartmann3"], reps=6, budget=24, n_campaigns=3,
                   past_trials=12, grid="quick", surrogates=["gp", "forest"],
-                  batch_function="branin", batch_reps=8),
+                  batch_function="hartmann3", batch_reps=8),
     "full": dict(functions=list(FUNCTIONS), reps=5, budget=30, n_campaigns=4,
                  past_trials=20, grid="full", surrogates=None,
                  batch_function="hartmann3", batch_reps=8),
