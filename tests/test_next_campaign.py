@@ -5,7 +5,7 @@ the recommended acquisition setting is not worse than the default (EI xi=0.01) b
 search (one-sided Wilcoxon signed-rank, p < 0.05), and a q = 4 batch by local
 penalization beats random search and is within 0.15 of sequential.
 
-Small size: Branin and Hartmann-3, 6 paired replicates of 20 trials (12 pairs for the
+Small size: Branin and Hartmann-3, 6 paired replicates of 24 trials (12 pairs for the
 pooled tests), 8 replicates for the batch campaign (Hartmann-3); about a minute on one core."""
 
 from __future__ import annotations
