@@ -137,7 +137,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
            jobs: int = 1, scheduler: str | None = None,
            acquisitions=None, budget: int | None = None, batch: int = 1,
            propose: int = 0, max_fit_seconds: float | None = None,
-           backtest: bool = True, plan: bool = True,
+           backtest: bool = True, plan: bool = True, freeze: bool = False,
            progress: Callable[[int, int, str], None] | None = None,
            command: str | None = None,
            model_time_limit: float | None = 600.0) -> Assessment:
@@ -171,6 +171,10 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         Seconds a user's model (``module:Class``) may take over all of its validation
         folds; it runs in a process of its own that is killed after that, and is then
         recorded as failed.  None runs user models in the task grid like the built-ins.
+    freeze : bool
+        Hold the parameters flagged as freeze candidates at their best logged value in
+        the proposals (default False: every parameter varies, and the candidates are
+        only reported).
 
     Returns
     -------
@@ -266,7 +270,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
                                                             if n not in failures],
                                         seed=seed, quick=quick, budget=budget,
                                         propose=propose, max_fit_seconds=max_fit_seconds,
-                                        executor=executor)
+                                        executor=executor, freeze=freeze)
     t_plan = time.perf_counter() - t_plan
     feasibility_out = _feasibility(trials, scheme.name, seed=seed, quick=quick,
                                    executor=executor)
@@ -416,7 +420,8 @@ def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, e
                         make=_quick_model, plan=plan_for(quick))
 
 
-def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor):
+def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor,
+          freeze=False):
     """Relevance, learning curve and cost projection for the recommended surrogate, and
     the proposed first batch.  Each part that fails is recorded, never fatal."""
     from . import planning
@@ -444,13 +449,22 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         max_fit_seconds=max_fit_seconds, repeats=1))
     proposals = None
     if propose:
-        frozen = {p["name"]: p["freeze_value"] for p in
-                  ((out.get("relevance") or {}).get("parameters") or []) if p.get("freeze")}
+        candidates = {p["name"]: p["freeze_value"] for p in
+                      ((out.get("relevance") or {}).get("parameters") or [])
+                      if p.get("freeze")}
+        frozen = candidates if freeze else {}
         setting = AcquisitionSetting(rec["acquisition"]["name"], rec["acquisition"]["params"])
         try:
             proposals = planning.propose_batch(trials, leader, setting, propose, seed=seed,
                                                quick=quick, frozen=frozen or None)
+            batch = dict(proposals.attrs.get("batch") or {})
+            proposals.attrs = {}  # the payload below carries it; keep the frame plain
             out["proposals"] = {"k": int(propose), "frozen": frozen,
+                                "freeze_candidates": candidates,
+                                "freeze_applied": bool(freeze),
+                                "batch_method": batch.get("method"),
+                                "batch_reference": batch.get("reference"),
+                                "batch": batch,
                                 "rows": proposals.to_dict(orient="records")}
         except UsageError:
             raise

@@ -71,6 +71,9 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--batch", type=int, default=1, help="trials per batch in the next campaign")
     a.add_argument("--propose", type=int, default=0, metavar="K",
                    help="propose K settings for the next campaign's first batch")
+    a.add_argument("--freeze-flagged", action="store_true",
+                   help="hold freeze-candidate parameters at their best logged value in "
+                        "the proposals (default: every parameter varies)")
     a.add_argument("--max-fit-seconds", type=float,
                    help="flag surrogates whose projected time per iteration exceeds this")
     a.add_argument("--jobs", type=int, help="local worker processes (default: all cores)")
@@ -183,7 +186,7 @@ def _assess(args) -> int:
                    scheduler=args.scheduler, acquisitions=args.acquisitions,
                    budget=args.budget, batch=args.batch, propose=args.propose,
                    max_fit_seconds=args.max_fit_seconds, backtest=not args.no_backtest,
-                   progress=tick, command=command,
+                   freeze=args.freeze_flagged, progress=tick, command=command,
                    model_time_limit=args.model_time_limit)
     finally:
         if bar is not None:

@@ -10,7 +10,9 @@ and a chosen surrogate:
   freeze at their best logged value.
 * :func:`propose_batch` -- the first ``K`` settings of the next campaign, chosen by the
   surrogate and an acquisition setting from all logged trials, with predicted mean and
-  90% interval, as a table with the log's own columns.
+  90% interval, as a table with the log's own columns; the batch differs by
+  construction (local penalization or distinct joint Thompson draws, one model fit, see
+  :mod:`advisor.batching`) and varies every parameter unless freezing is asked for.
 * :func:`learning_curve` -- held-out CRPS and NLL against the number of training trials,
   and a plain-words reading of whether more trials still help.
 * :func:`cost_projection` -- measured fit and predict seconds against the number of
@@ -38,6 +40,10 @@ References
 .. [GLC2010] Ginsbourger, D., Le Riche, R. & Carraro, L. (2010). Kriging is
    well-suited to parallelize optimization. In Computational Intelligence in Expensive
    Optimization Problems, Springer, 131-162 (Sec. 4.2, the kriging believer).
+.. [GDHL2016] González, J., Dai, Z., Hennig, P. & Lawrence, N. D. (2016). Batch
+   Bayesian optimization via local penalization. AISTATS, PMLR 51, 648-657.
+.. [KKSP2018] Kandasamy, K., Krishnamurthy, A., Schneider, J. & Póczos, B. (2018).
+   Parallelised Bayesian optimisation via Thompson sampling. AISTATS, PMLR 84, 133-142.
 .. [GRWG2005] Gneiting, T., Raftery, A. E., Westveld, A. H. & Goldman, T. (2005).
    Calibrated probabilistic forecasting using ensemble model output statistics and
    minimum CRPS estimation. Monthly Weather Review 133, 1098-1118 (Eq. 5).

@@ -11,13 +11,14 @@ from typing import Callable, Mapping
 import numpy as np
 import pandas as pd
 
-from ..acquisition import AcquisitionSetting, acquisition_values, parse_settings, select_batch
+from ..acquisition import AcquisitionSetting, acquisition_values, parse_settings
+from ..batching import BATCH_REFERENCES, build_batch, smallest_distance, unit_cube
 from ..errors import UsageError
 from ..execution import task_seed
 from ..space import ParameterSpace
 from ..surrogates import make_surrogate
 
-from ._common import _Z90, _check_trials, _fit, _fit_all
+from ._common import _Z90, _check_trials, _fit_all
 
 
 def _check_frozen(space: ParameterSpace, frozen: Mapping | None) -> dict:
@@ -141,20 +142,21 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
                   campaign_label: str = "next") -> pd.DataFrame:
     """The first ``k`` settings of the next campaign.
 
-    The surrogate is fitted on every successful logged trial (warm start).  A candidate
-    pool (random settings plus perturbations of the best logged trials, all snapped to
-    levels, whole numbers, bounds and frozen values; logged settings and duplicates
-    removed) is scored by the acquisition setting, and the batch is picked by the
-    *kriging believer* ([GLC2010] Sec. 4.2) through
-    :func:`advisor.acquisition.select_batch`: take the best candidate, add it to the
-    training data with the model's predicted mean as if observed, refit, and pick again,
-    ``k`` times.  Following the paper: the fantasy value is the predictive mean.  Our
-    choices: a finite candidate pool instead of a continuous inner optimizer (robust for
-    integer and categorical spaces; no point is ever off a level or a whole number),
-    and each refit gets its own seed from :func:`task_seed`.
+    The surrogate is fitted once on every successful logged trial (warm start); its
+    hyperparameters stay fixed for the whole batch.  A candidate pool (random settings
+    plus perturbations of the best logged trials, all snapped to levels, whole numbers,
+    bounds and frozen values; logged settings and duplicates removed) is scored by the
+    acquisition setting, and the batch is built by :func:`advisor.batching.build_batch`:
+    local penalization [GDHL2016] for EI, PI and UCB, distinct joint posterior draws
+    [KKSP2018] for Thompson sampling, so the proposals differ by construction.  Our
+    choice: a finite candidate pool instead of a continuous inner optimizer (robust for
+    integer and categorical spaces; no point is ever off a level or a whole number).
+
+    By default every parameter varies; ``frozen`` holds the given parameters fixed
+    (the assessment passes its freeze candidates only when asked to, ``freeze=True``).
 
     Predicted mean and 90% interval (mean +- 1.645 std of a new observation, noise
-    included) come from the model fitted on the logged trials only, converted to the
+    included) come from the model fitted on the logged trials, converted to the
     user's units and direction.
 
     Parameters
@@ -186,6 +188,9 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
         order 1..k, other columns empty -- followed by ``predicted_mean``,
         ``predicted_low_90``, ``predicted_high_90`` and ``acquisition``.  Fewer than
         ``k`` rows (with a warning) when the space holds fewer new distinct settings.
+        ``frame.attrs["batch"]`` says how the batch was built: ``method`` (a key of
+        :data:`advisor.batching.BATCH_REFERENCES`), ``reference``, ``lipschitz``,
+        ``draws``, ``hyperparameters`` and ``diversity`` (see :func:`batch_diversity`).
     """
     _check_trials(trials)
     if int(k) < 1:
@@ -205,20 +210,13 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
     model, encoding = _fit_all(make, surrogate_name, task_seed(seed, "propose", "fit", 0),
                                quick, trials)
     X_pool = space.encode(pool, encoding)
-    X_train, y_train = space.encode(trials.used, encoding), trials.y.copy()
     y_best = float(np.min(trials.y))
     y_scale = float(np.std(trials.y)) or 1.0
-    refits = iter(range(1, k))
-
-    def refit(X_aug, y_aug):
-        return _fit(make, surrogate_name, task_seed(seed, "propose", "fit", next(refits)),
-                    quick, X_aug, y_aug)
-
     acq_rng = np.random.default_rng(task_seed(seed, "propose", "acquisition"))
-    chosen = [int(i) for i in select_batch(
-        model, setting, X_pool, y_best, q=k, rng=acq_rng, method="kriging_believer",
-        y_scale=y_scale, X_train=X_train, y_train=y_train, refit=refit).indices] if k else []
-    # Reported utility: under the warm-start model (no fantasies), so the column reads
+    batch = (build_batch(model, setting, X_pool, y_best, k, acq_rng, y_scale=y_scale,
+                         bounds=space.encoded_bounds(encoding)) if k else None)
+    chosen = [int(i) for i in batch.indices] if batch is not None else []
+    # Reported utility: under the warm-start model (no penalty), so the column reads
     # the same for every row; for Thompson and random it is one more draw.
     acq_values = (acquisition_values(model, setting, X_pool[chosen], y_best,
                                      np.random.default_rng(task_seed(seed, "propose", "value")),
@@ -226,8 +224,54 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
     picked = pool.iloc[chosen].reset_index(drop=True)
     mean, std = (model.predict(X_pool[chosen]) if chosen
                  else (np.zeros(0), np.zeros(0)))
-    return _proposal_frame(trials, picked, np.asarray(mean, float), np.asarray(std, float),
-                           acq_values, campaign_label)
+    frame = _proposal_frame(trials, picked, np.asarray(mean, float), np.asarray(std, float),
+                            acq_values, campaign_label)
+    method = batch.method if batch is not None else "single"
+    frame.attrs["batch"] = {
+        "method": method, "reference": BATCH_REFERENCES[method],
+        "lipschitz": None if batch is None or batch.lipschitz is None
+        else float(batch.lipschitz),
+        "draws": None if batch is None else batch.draws,
+        "hyperparameters": "fitted once on the logged trials; fixed within the batch",
+        "diversity": batch_diversity(space, picked, seed=seed, frozen=frozen)}
+    return frame
+
+
+def unit_coordinates(space: ParameterSpace, frame: pd.DataFrame) -> np.ndarray:
+    """Settings as points of the unit cube: numeric parameters scaled to [0, 1] on their
+    (log10) range, a categorical parameter as its one-hot block divided by sqrt(2), so
+    two different levels are 1 apart (our convention for batch distances)."""
+    X = space.encode(frame, "onehot")
+    U = unit_cube(X, space.encoded_bounds("onehot"))
+    j = 0
+    for p in space:
+        if p.kind == "categorical":
+            U[:, j:j + len(p.levels)] /= math.sqrt(2.0)
+            j += len(p.levels)
+        else:
+            j += 1
+    return U
+
+
+def batch_diversity(space: ParameterSpace, picked: pd.DataFrame, *, seed: int,
+                    frozen: Mapping | None = None, n_random: int = 500) -> dict:
+    """Smallest pairwise unit-cube distance of the batch (:func:`unit_coordinates`), and
+    the mean of the same over ``n_random`` uniform random batches of the same size in
+    the same space (frozen parameters held at the same values)."""
+    k = len(picked)
+    if k < 2:
+        return {"min_distance": None, "random_batch_min_distance": None, "ratio": None}
+    d = smallest_distance(unit_coordinates(space, picked[space.names]))
+    rng = np.random.default_rng(task_seed(seed, "propose", "diversity"))
+    ref = []
+    for _ in range(n_random):
+        r = space.sample(k, rng)
+        for name, value in (frozen or {}).items():
+            r[name] = [value] * k
+        ref.append(smallest_distance(unit_coordinates(space, r)))
+    ref_mean = float(np.mean(ref))
+    return {"min_distance": d, "random_batch_min_distance": ref_mean,
+            "ratio": d / ref_mean if ref_mean > 0 else None}
 
 
 def _proposal_frame(trials, picked, mean, std, acq_values, campaign_label) -> pd.DataFrame:

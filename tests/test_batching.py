@@ -1,0 +1,144 @@
+"""Tests of advisor.batching: the local-penalization penalizer against its closed form,
+batches that differ by construction, distinct Thompson draws, and the diversity of the
+proposed first batch on the sample logs."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import stats
+from threadpoolctl import threadpool_limits
+
+from advisor import batching as B
+from advisor import planning as P
+from advisor.acquisition import AcquisitionSetting, acquisition_values
+from advisor.logs import load_trials
+from advisor.planning import _proposals
+
+ROOT = Path(__file__).resolve().parent.parent
+SAMPLES = ROOT / "sample_logs"
+
+
+@pytest.fixture(autouse=True)
+def _one_blas_thread():
+    with threadpool_limits(1):
+        yield
+
+
+class _Known:
+    """Stand-in model with a known mean and a constant std on 1-D inputs."""
+
+    input_encoding = "onehot"
+
+    def __init__(self, mean_fn, std=1e-3):
+        self.mean_fn, self.std = mean_fn, std
+
+    def predict(self, X):
+        X = np.asarray(X, float)
+        return self.mean_fn(X), np.full(len(X), self.std)
+
+
+def test_penalizer_matches_normal_cdf_closed_form():
+    # phi(x; x_j) = Phi((M + L d - mu_j) / s_j), González et al. (2016) Eq. 3 mirrored
+    # for minimization; reference: scipy.stats.norm.logcdf.
+    rng = np.random.default_rng(0)
+    U = rng.random((50, 3))
+    u_j, mu_j, s_j, M, L = U[0], 1.3, 0.4, 0.9, 2.5
+    d = np.linalg.norm(U - u_j, axis=1)
+    np.testing.assert_allclose(B.penalizer_log(U, u_j, mu_j, s_j, M, L),
+                               stats.norm.logcdf((M + L * d - mu_j) / s_j), rtol=1e-10)
+    # at the point itself: P(f(x_j) < M) (the ball has radius (mu_j - M) / L)
+    assert B.penalizer_log(u_j[None], u_j, mu_j, s_j, M, L)[0] == pytest.approx(
+        stats.norm.logcdf((M - mu_j) / s_j), rel=1e-12)
+
+
+def test_lipschitz_of_a_linear_mean_is_its_slope():
+    # Collinear points on a line of slope 3: every pairwise slope is exactly 3.
+    t = np.linspace(0, 1, 30)[:, None]
+    U = np.hstack([t, t]) / np.sqrt(2.0)  # unit steps along the diagonal
+    mean = 3.0 * t[:, 0]
+    L = B.lipschitz_estimate(U, mean, np.random.default_rng(0))
+    assert L == pytest.approx(3.0, rel=1e-9)
+    assert B.lipschitz_estimate(U, np.zeros(30), np.random.default_rng(0), floor=1e-7) == 1e-7
+
+
+def test_local_penalization_respects_the_exclusion_balls():
+    # A 1-D bowl, std tiny: the penalizer is (to within 1e-3 / L) the indicator of
+    # d > r_j = (mu_j - M) / L (González et al. 2016, Sec. 3.1), so every later pick lies
+    # outside the ball of every earlier one; the greedy top-5 by EI are 5 neighbours.
+    X = np.linspace(0, 1, 401)[:, None]
+    model = _Known(lambda X: (X[:, 0] - 0.5) ** 2 * 4.0, std=1e-3)
+    setting = AcquisitionSetting("ucb", {"beta": 1.0})
+    best = -0.3  # incumbent below the bowl's floor: every ball has radius >= 0.3 / L
+    batch = B.build_batch(model, setting, X, best, 5, np.random.default_rng(0),
+                          bounds=np.array([[0.0, 1.0]]))
+    assert batch.method == "local_penalization" and len(set(batch.indices)) == 5
+    mean, _ = model.predict(X)
+    M = min(best, mean.min())
+    pts = X[batch.indices, 0]
+    # the second pick lies outside the first pick's ball (later picks may fall inside
+    # a ball once the balls cover the whole interval: then the least penalized wins)
+    r_first = (mean[batch.indices[0]] - M) / batch.lipschitz
+    assert abs(pts[1] - pts[0]) >= r_first - 0.01
+    vals, _ = acquisition_values(model, setting, X, best, np.random.default_rng(0))
+    top5 = np.argsort(-vals)[:5]
+    assert B.smallest_distance(X[top5]) < 0.01 < B.smallest_distance(X[batch.indices])
+
+
+def test_batch_of_one_is_the_acquisition_argmax():
+    X = np.linspace(0, 1, 101)[:, None]
+    model = _Known(lambda X: np.sin(6 * X[:, 0]), std=0.2)
+    s = AcquisitionSetting("ei", {"xi": 0.01})
+    b = B.build_batch(model, s, X, 0.0, 1, np.random.default_rng(1))
+    vals, _ = acquisition_values(model, s, X, 0.0, np.random.default_rng(1))
+    assert b.method == "single" and b.indices[0] == int(np.argmax(vals))
+
+
+def test_thompson_batch_is_distinct_and_reproducible():
+    X = np.random.default_rng(0).random((60, 2))
+    model = _Known(lambda X: X.sum(1), std=0.5)  # no sample_y: independent draws
+    s = AcquisitionSetting("thompson")
+    a = B.build_batch(model, s, X, 0.0, 6, np.random.default_rng(3))
+    b = B.build_batch(model, s, X, 0.0, 6, np.random.default_rng(3))
+    assert a.method == "thompson_draws" and a.draws == "independent"
+    assert len(set(a.indices)) == 6 and list(a.indices) == list(b.indices)
+    r = B.build_batch(model, AcquisitionSetting("random"), X, 0.0, 6,
+                      np.random.default_rng(3))
+    assert r.method == "random" and len(set(r.indices)) == 6
+
+
+# -- batch diversity on the sample logs -------------------------------------------------
+RUNS = {
+    "moulding_warpage": dict(objective="warpage_mm", campaign="lot", order="run"),
+    "fermentation_yield": dict(objective="yield_g_per_l", direction="maximize",
+                               campaign="batch_series", order="run", status="outcome",
+                               success=["ok"]),
+    "forecast_tuning": dict(objective="val_mape", campaign="study", order="trial",
+                            space=SAMPLES / "forecast_tuning.space.toml"),
+}
+
+#: The K = 5 proposals' closest pair must be at least this fraction of a random batch's
+#: (mean over 500 uniform batches).  Measured (GP, quick, seeds 0 and 1): local
+#: penalization 0.15-0.62 with EI xi=0.01 and 0.32-1.1 with UCB beta=4; the kriging
+#: believer it replaced gave 0.017-0.046 on two of the three logs (EI), and 0.028 for
+#: the demo's moulding batch with four parameters frozen (0.017 vs 0.60).  0.1 sits below every
+#: measured local-penalization batch and well above the old clustered ones.
+DIVERSITY_FRACTION = 0.1
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("stem", sorted(RUNS))
+@pytest.mark.parametrize("setting", ["ei:xi=0.01", "ucb:beta=4"])
+def test_first_batch_is_diverse_on_sample_logs(stem, setting):
+    t = load_trials(SAMPLES / f"{stem}.csv", **RUNS[stem])
+    out = P.propose_batch(t, "gp", setting, 5, seed=0, quick=True)
+    d = B.smallest_distance(_proposals.unit_coordinates(t.space, out[t.space.names]))
+    rng = np.random.default_rng(12345)
+    ref = np.mean([B.smallest_distance(_proposals.unit_coordinates(t.space, t.space.sample(5, rng)))
+                   for _ in range(500)])  # MC error of the mean: ~0.01 (sd ~0.2 / sqrt(500))
+    assert d >= DIVERSITY_FRACTION * ref, (d, ref)
+    info = out.attrs["batch"]
+    assert info["method"] == "local_penalization"
+    assert info["diversity"]["min_distance"] == pytest.approx(d)
