@@ -264,19 +264,17 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
 
     rec = _recommendation(ranking, backtest_out)
     t_plan = time.perf_counter()
+    feasibility_out = _feasibility(trials, scheme.name, seed=seed, quick=quick,
+                                   executor=executor)
     planning_out, proposals = None, None
     if plan and rec["surrogate"] is not None:
         planning_out, proposals = _plan(trials, rec, names=[n for n in names
                                                             if n not in failures],
                                         seed=seed, quick=quick, budget=budget,
                                         propose=propose, max_fit_seconds=max_fit_seconds,
-                                        executor=executor, freeze=freeze)
+                                        executor=executor, freeze=freeze,
+                                        feasibility=feasibility_out)
     t_plan = time.perf_counter() - t_plan
-    feasibility_out = _feasibility(trials, scheme.name, seed=seed, quick=quick,
-                                   executor=executor)
-    if proposals is not None and feasibility_out and feasibility_out.get("_model"):
-        proposals = _with_success_probability(trials, proposals, feasibility_out)
-        planning_out["proposals"]["rows"] = proposals.to_dict(orient="records")
     table = ranking.table
     noise_out = {"replicates": _replicate_noise(trials), "fitted": noise}
     a = Assessment(
@@ -313,18 +311,6 @@ def _feasibility(trials, scheme: str, *, seed, quick, executor):
     except Exception as exc:  # a report section failing must not sink the assessment
         return {"error": f"{type(exc).__name__}: {exc}".splitlines()[0][:300],
                 "skipped": "the failure model could not be fitted", "chosen": None}
-
-
-def _with_success_probability(trials, proposals: pd.DataFrame, feas: dict) -> pd.DataFrame:
-    """The proposals table with each setting's predicted probability of success."""
-    from .feasibility import LOW_SUCCESS
-
-    out = proposals.copy()
-    ps = feas["_model"].success_probability(out[trials.params])
-    out["p_success"] = ps
-    low = [i + 1 for i, v in enumerate(ps) if v < LOW_SUCCESS]
-    feas["proposals_below_threshold"] = low
-    return out
 
 
 def _recommendation(ranking, backtest_out) -> dict:
@@ -421,7 +407,7 @@ def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, e
 
 
 def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor,
-          freeze=False):
+          freeze=False, feasibility=None):
     """Relevance, learning curve and cost projection for the recommended surrogate, and
     the proposed first batch.  Each part that fails is recorded, never fatal."""
     from . import planning
@@ -455,8 +441,16 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         frozen = candidates if freeze else {}
         setting = AcquisitionSetting(rec["acquisition"]["name"], rec["acquisition"]["params"])
         try:
-            proposals = planning.propose_batch(trials, leader, setting, propose, seed=seed,
-                                               quick=quick, frozen=frozen or None)
+            feas_model = (feasibility or {}).get("_model")
+            proposals = planning.propose_batch(
+                trials, leader, setting, propose, seed=seed, quick=quick,
+                frozen=frozen or None,
+                success_probability=None if feas_model is None else
+                feas_model.success_probability)
+            if feas_model is not None:
+                from .feasibility import LOW_SUCCESS
+                feasibility["proposals_below_threshold"] = [
+                    i + 1 for i, v in enumerate(proposals["p_success"]) if v < LOW_SUCCESS]
             batch = dict(proposals.attrs.get("batch") or {})
             proposals.attrs = {}  # the payload below carries it; keep the frame plain
             out["proposals"] = {"k": int(propose), "frozen": frozen,

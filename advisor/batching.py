@@ -65,7 +65,8 @@ from .acquisition import AcquisitionSetting, acquisition_values
 from .surrogates.base import check_predictions
 
 __all__ = ["Batch", "build_batch", "latent_moments", "lipschitz_estimate",
-           "penalizer_log", "unit_cube", "smallest_distance", "BATCH_REFERENCES"]
+           "penalizer_log", "unit_cube", "smallest_distance", "BATCH_REFERENCES",
+           "weight_by_success", "MIN_SUCCESS"]
 
 #: method name -> short citation, for the report.
 BATCH_REFERENCES = {
@@ -152,7 +153,8 @@ def penalizer_log(U: np.ndarray, u_j: np.ndarray, mu_j: float, s_j: float, M: fl
 def build_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, best: float,
                 q: int, rng: np.random.Generator, *, y_scale: float = 1.0,
                 bounds: np.ndarray | None = None,
-                moments: Callable[[np.ndarray], tuple] | None = None) -> Batch:
+                moments: Callable[[np.ndarray], tuple] | None = None,
+                p_success: np.ndarray | None = None) -> Batch:
     """Pick ``q`` distinct candidates from one fitted model (see the module docstring).
 
     Parameters
@@ -174,6 +176,10 @@ def build_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, be
     moments : callable, optional
         ``X -> (mean, std)`` of the latent function for the penalizer; default
         :func:`latent_moments` of the model.
+    p_success : ndarray (n,), optional
+        Predicted probability that each candidate's trial succeeds; the acquisition is
+        then weighted by it and candidates below :data:`MIN_SUCCESS` are left out
+        (:func:`weight_by_success`, Gelbart, Snoek & Adams 2014).
 
     Returns
     -------
@@ -184,13 +190,17 @@ def build_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, be
     q = int(q)
     if not 1 <= q <= n:
         raise ValueError(f"q={q} must be between 1 and the number of candidates ({n})")
-    if setting.name == "random":
+    if setting.name == "random" and p_success is None:
         return Batch(rng.choice(n, size=q, replace=False), "random" if q > 1 else "single")
-    if setting.name == "thompson":
-        return _thompson_draws(model, setting, X, best, q, rng, y_scale)
+    if setting.name in ("thompson", "random"):
+        return _thompson_draws(model, setting, X, best, q, rng, y_scale, p_success)
     values, _ = acquisition_values(model, setting, X, best, rng, y_scale)
     values = np.asarray(values, dtype=float)
-    if setting.name == "ucb":
+    if p_success is not None:
+        # weighted utility; excluded candidates get -inf and stay out of the batch
+        w = weight_by_success(setting.name, values, p_success, best)
+        log_g = np.where(np.isfinite(w), np.log(np.maximum(w, 1e-300)), -np.inf)
+    elif setting.name == "ucb":
         # softplus((best - LCB) / y_scale): values = -LCB
         z = (values + best) / (y_scale or 1.0)
         log_g = np.log(np.logaddexp(0.0, z))
@@ -213,16 +223,19 @@ def build_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, be
     return Batch(np.array(chosen, dtype=int), "local_penalization", lipschitz=L)
 
 
-def _thompson_draws(model, setting, X, best, q, rng, y_scale) -> Batch:
+def _thompson_draws(model, setting, X, best, q, rng, y_scale, p_success=None) -> Batch:
     free = np.ones(len(X), dtype=bool)
     chosen, kind = [], None
     for _ in range(q):
         values, k = acquisition_values(model, setting, X, best, rng, y_scale)
+        if p_success is not None:
+            values = weight_by_success(setting.name, values, p_success, best)
         kind = kind or k
         i = _argmax(np.where(free, values, -np.inf), rng)
         chosen.append(i)
         free[i] = False
-    return Batch(np.array(chosen, dtype=int), "thompson_draws" if q > 1 else "single",
+    method = "random" if setting.name == "random" else "thompson_draws"
+    return Batch(np.array(chosen, dtype=int), method if q > 1 else "single",
                  draws=kind)
 
 
@@ -231,3 +244,34 @@ def _argmax(values: np.ndarray, rng: np.random.Generator) -> int:
     apart must behave like random search, not replay the candidates' order)."""
     top = np.flatnonzero(values == values.max())
     return int(top[0] if len(top) == 1 else rng.choice(top))
+
+
+#: Candidates below this probability of success are excluded from a weighted search
+#: (see :mod:`advisor.feasibility`).
+MIN_SUCCESS = 0.5
+
+
+def weight_by_success(name: str, values: np.ndarray, p_success: np.ndarray,
+                       best: float | None = None,
+                       min_success: float = MIN_SUCCESS) -> np.ndarray:
+    """Acquisition values weighted by P(success), larger = better.
+
+    ``values`` are as :func:`advisor.acquisition.acquisition_values` returns them
+    (larger is better: EI, PI, ``-LCB``, ``-draw`` for Thompson, uniform for random);
+    ``best`` is the incumbent in minimization form, needed for ``ucb`` and ``thompson``,
+    whose optimistic improvement ``max(best - value, 0) = max(best + values, 0)`` is
+    weighted.  Candidates with P(success) below ``min_success`` get ``-inf`` unless no
+    candidate reaches it.
+    """
+    values = np.asarray(values, dtype=float)
+    p_success = np.asarray(p_success, dtype=float)
+    if name in ("ei", "pi", "random"):
+        out = values * p_success
+    elif best is None:
+        raise ValueError(f"weighting {name} needs the incumbent")
+    else:
+        out = np.maximum(best + values, 0.0) * p_success
+    keep = p_success >= min_success
+    if keep.any():
+        out = np.where(keep, out, -np.inf)
+    return out

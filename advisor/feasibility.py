@@ -85,6 +85,7 @@ from sklearn.gaussian_process.kernels import ConstantKernel, Matern
 from sklearn.linear_model import LogisticRegression
 from sklearn.metrics import brier_score_loss, log_loss
 
+from .batching import MIN_SUCCESS, weight_by_success as weight_acquisition
 from .execution import task_seed
 from .scoring import stratified_bootstrap_index
 from .validation import choose_scheme
@@ -98,8 +99,6 @@ CLASSIFIERS = ("constant", "logistic", "forest", "gp")
 MIN_EACH = 5
 #: A proposal whose predicted probability of success is below this is warned about.
 LOW_SUCCESS = 0.8
-#: Candidates below this probability of success are excluded from the weighted search.
-MIN_SUCCESS = 0.5
 _CLIP = 1e-4
 _N_BOOT = 1000
 
@@ -378,29 +377,3 @@ def _failure_map(model: FeasibilityModel, frame: pd.DataFrame, names: list[str],
                        for _, vals in axes],
             "failure_probability": pf.reshape(shape).tolist(),
             "method": "partial dependence over up to 150 logged settings"}
-
-
-def weight_acquisition(name: str, values: np.ndarray, p_success: np.ndarray,
-                       best: float | None = None,
-                       min_success: float = MIN_SUCCESS) -> np.ndarray:
-    """Acquisition values weighted by P(success), larger = better.
-
-    ``values`` are as :func:`advisor.acquisition.acquisition_values` returns them
-    (larger is better: EI, PI, ``-LCB``, ``-draw`` for Thompson, uniform for random);
-    ``best`` is the incumbent in minimization form, needed for ``ucb`` and ``thompson``,
-    whose optimistic improvement ``max(best - value, 0) = max(best + values, 0)`` is
-    weighted.  Candidates with P(success) below ``min_success`` get ``-inf`` unless no
-    candidate reaches it.
-    """
-    values = np.asarray(values, dtype=float)
-    p_success = np.asarray(p_success, dtype=float)
-    if name in ("ei", "pi", "random"):
-        out = values * p_success
-    elif best is None:
-        raise ValueError(f"weighting {name} needs the incumbent")
-    else:
-        out = np.maximum(best + values, 0.0) * p_success
-    keep = p_success >= min_success
-    if keep.any():
-        out = np.where(keep, out, -np.inf)
-    return out

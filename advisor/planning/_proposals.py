@@ -139,7 +139,8 @@ def _as_setting(setting) -> AcquisitionSetting:
 def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
                   quick: bool = False, frozen: Mapping | None = None,
                   make: Callable = make_surrogate, n_pool: int | None = None,
-                  campaign_label: str = "next") -> pd.DataFrame:
+                  campaign_label: str = "next",
+                  success_probability: Callable | None = None) -> pd.DataFrame:
     """The first ``k`` settings of the next campaign.
 
     The surrogate is fitted once on every successful logged trial (warm start); its
@@ -179,6 +180,10 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
         Candidate-pool size.
     campaign_label : str
         Value written to the campaign column.
+    success_probability : callable, optional
+        ``settings frame -> P(success)`` from :mod:`advisor.feasibility`: the acquisition
+        is weighted by it (candidates below ``batching.MIN_SUCCESS`` left out) and each
+        proposal gets a ``p_success`` column.
 
     Returns
     -------
@@ -213,8 +218,11 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
     y_best = float(np.min(trials.y))
     y_scale = float(np.std(trials.y)) or 1.0
     acq_rng = np.random.default_rng(task_seed(seed, "propose", "acquisition"))
+    p_pool = (None if success_probability is None else
+              np.asarray(success_probability(pool), dtype=float))
     batch = (build_batch(model, setting, X_pool, y_best, k, acq_rng, y_scale=y_scale,
-                         bounds=space.encoded_bounds(encoding)) if k else None)
+                         bounds=space.encoded_bounds(encoding), p_success=p_pool)
+             if k else None)
     chosen = [int(i) for i in batch.indices] if batch is not None else []
     # Reported utility: under the warm-start model (no penalty), so the column reads
     # the same for every row; for Thompson and random it is one more draw.
@@ -226,6 +234,8 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
                  else (np.zeros(0), np.zeros(0)))
     frame = _proposal_frame(trials, picked, np.asarray(mean, float), np.asarray(std, float),
                             acq_values, campaign_label)
+    if p_pool is not None:
+        frame["p_success"] = p_pool[chosen]
     method = batch.method if batch is not None else "single"
     frame.attrs["batch"] = {
         "method": method, "reference": BATCH_REFERENCES[method],
