@@ -159,3 +159,22 @@ def test_mcs_two_models_matches_exact_sign_flip_test():
                      for s in product([-1, 1], repeat=8)])
     assert pv.min() == pytest.approx(exact, abs=0.01)   # 20,000 draws: MC SE < 0.004
     assert pv.max() == 1.0
+
+
+def test_own_point_scores_replace_the_gaussian_forms_and_get_no_scale():
+    # A predictive that supplies its own per-point CRPS/PIT: here the Gaussian values
+    # computed with scipy's normal CDF/PDF (Gneiting et al. 2005 Eq. 5), doubled for
+    # CRPS, so the model must score exactly twice the closed form and get scale 1.
+    from scipy import stats
+    rng = np.random.default_rng(8)
+    y, mu, fold = _preds(rng)
+    z = (y - mu) / 0.3
+    crps = 0.3 * (z * (2 * stats.norm.cdf(z) - 1) + 2 * stats.norm.pdf(z) - 1 / np.sqrt(np.pi))
+    own = _entry(y, mu, 0.3, fold) | {"crps_pt": 2 * crps, "pit": stats.norm.cdf(z),
+                                      "nll_pt": stats.norm.logpdf(z) * -1}
+    r = rank_surrogates({"own": own}, {}, {"own": 1.0}, scales={"own": 3.0},
+                        scaled_coverage={"own": 0.9})
+    row = r.table.iloc[0]
+    assert row["crps"] == pytest.approx(2 * crps.mean())
+    assert row["variance_scale"] == 1.0
+    assert row["coverage_90"] == pytest.approx(np.mean(np.abs(z) <= stats.norm.ppf(0.95)))
