@@ -138,7 +138,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
            propose: int = 0, max_fit_seconds: float | None = None,
            backtest: bool = True, plan: bool = True,
            progress: Callable[[int, int, str], None] | None = None,
-           command: str | None = None) -> Assessment:
+           command: str | None = None, campaign_order: Sequence[str] | None = None
+           ) -> Assessment:
     """Cross-validate every candidate surrogate on ``trials`` and recommend one.
 
     Parameters
@@ -165,6 +166,11 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         Flag surrogates whose projected time per iteration exceeds this.
     backtest, plan : bool
         Run the acquisition backtest and the next-campaign plan (when available).
+    campaign_order : sequence of str, optional
+        Campaigns in the order they ran, earliest first.  Forward chaining then trains
+        each fold on every earlier campaign in full plus the current campaign's prefix
+        (``validation.campaign_order`` in the output); without it campaigns are chained
+        one by one and the order between them is not inferred.
 
     Returns
     -------
@@ -188,9 +194,14 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
 
     y = trials.y
     groups = trials.groups
+    if campaign_order is not None and not trials.campaign:
+        raise UsageError("a campaign order was given but the log has no campaign column",
+                         fix="name the campaign column with --campaign, or drop "
+                             "--campaign-order")
     scheme = choose_scheme(validation, order=trials.order_values if trials.order else None,
                            groups=groups if trials.campaign else None,
-                           n_rows=trials.n_used, seed=seed, quick=quick)
+                           n_rows=trials.n_used, seed=seed, quick=quick,
+                           campaign_order=campaign_order)
     X_enc = {enc: trials.features(enc) for enc in set(encodings.values())}
     folds = list(scheme.splitter.split(X_enc[next(iter(X_enc))], y, groups))
     t_cv = time.perf_counter()
@@ -272,6 +283,10 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         validation={"scheme": scheme.name, "description": scheme.splitter.describe(),
                     "reason": scheme.reason, "n_folds": len(folds),
                     "tested_trials": int(len(tested)), "trials": int(len(y)),
+                    "campaign_order": (list(campaign_order) if campaign_order is not None
+                                       and scheme.name == "forward" and trials.campaign
+                                       else None),
+                    "ranking_blocks": ranking.mcs,
                     "secondary": secondary,
                     "metrics_by_scheme": by_scheme},
         predictions=pd.DataFrame(pred_rows, columns=["surrogate", "fold", "row", "y",
