@@ -537,3 +537,22 @@ def test_cost_projection_records_a_failing_model():
     res = P.cost_projection(t, ["broken"], seed=0, quick=True, budget=5,
                             make=lambda name, seed=0, quick=False: Broken())
     assert "boom" in res["surrogates"]["broken"]["error"]
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_weak_but_sure_effect_is_not_frozen(seed):
+    # y = a + b + c + 0.5ab + 0.45 d + small noise: d explains about 6% of the variance
+    # (Var(0.45 d) = 0.2025/12 against a total near 0.29, closed form for uniforms), a
+    # weak effect the data pin down well: above the 5% margin, so no positive evidence
+    # that it is small, and d must not be frozen.
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(0, 1, (60, 4))
+    y = (X[:, 0] + X[:, 1] + X[:, 2] + 0.5 * X[:, 0] * X[:, 1] + 0.45 * X[:, 3]
+         + 0.02 * rng.normal(size=60))
+    frame = pd.DataFrame(X, columns=list("abcd"))
+    frame["y"] = y
+    res = P.parameter_relevance(_table(frame, list("abcd")), "gp", seed=seed, quick=True)
+    d = res["parameters"][3]
+    assert d["freeze"] is False
+    assert d["total_interval"][1] >= P.TOTAL_EFFECT_FREEZE or \
+        d["permutation_interval"][1] >= P.PERMUTATION_FREEZE
