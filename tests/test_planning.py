@@ -516,8 +516,13 @@ def test_cost_projection_schema_and_limit():
         e = res["surrogates"][name]
         assert set(e) == {"sizes", "fit_seconds", "predict_seconds", "fit_seconds_exponent",
                           "predict_seconds_exponent", "projected_size",
-                          "projected_seconds_per_iteration", "over_max_fit_seconds", "error"}
+                          "projected_seconds_per_iteration", "over_max_fit_seconds", "error",
+                          "fit_seconds_exponent_raw", "predict_seconds_exponent_raw",
+                          "seconds_exponent_note"}
         assert e["sizes"] == [12, 24, 48] and e["error"] is None
+        # a negative exponent is never shown as a growth rate
+        for k in ("fit_seconds_exponent", "predict_seconds_exponent"):
+            assert e[k] is None or e[k] >= 0
         assert e["over_max_fit_seconds"] is True  # any positive time exceeds 1e-9 s
         assert len(e["fit_seconds"]) == 3 and e["projected_seconds_per_iteration"] > 0
     assert json.dumps(res, allow_nan=False)
