@@ -368,12 +368,16 @@ def test_reading_rule_on_synthetic_curves():
     sizes = [10, 20, 30, 40]
     falling = np.array([[1.0, 0.8, 0.6, 0.4], [1.1, 0.85, 0.62, 0.41],
                         [0.9, 0.75, 0.58, 0.39]])
-    improving, flat_n, text = _learning._read_curve(sizes, falling)
+    improving, flat_n, text, test = _learning._read_curve(sizes, falling)
     assert improving is True and flat_n is None and text.startswith("still improving")
     level = np.array([[1.0, 0.5, 0.52, 0.49], [1.1, 0.48, 0.47, 0.51],
                       [0.9, 0.51, 0.5, 0.5]])
-    improving, flat_n, text = _learning._read_curve(sizes, level)
+    improving, flat_n, text, test = _learning._read_curve(sizes, level)
     assert improving is False and flat_n == 20 and text.startswith("flat beyond ~20")
+    # the reading's test is scipy's one-sided paired t-test of sizes[1] vs sizes[-1]
+    ref = stats.ttest_rel(level[:, 1], level[:, -1], alternative="greater")
+    assert test["df"] == 2 and test["t"] == pytest.approx(ref.statistic)
+    assert test["p_one_sided"] == pytest.approx(ref.pvalue)
 
 
 @pytest.mark.parametrize("seed", [0, 1])
