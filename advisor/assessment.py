@@ -139,7 +139,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
            propose: int = 0, max_fit_seconds: float | None = None,
            backtest: bool = True, plan: bool = True, freeze: bool = False,
            progress: Callable[[int, int, str], None] | None = None,
-           command: str | None = None,
+           command: str | None = None, campaign_order: Sequence[str] | None = None,
            model_time_limit: float | None = 600.0) -> Assessment:
     """Cross-validate every candidate surrogate on ``trials`` and recommend one.
 
@@ -175,6 +175,11 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         Hold the parameters flagged as freeze candidates at their best logged value in
         the proposals (default False: every parameter varies, and the candidates are
         only reported).
+    campaign_order : sequence of str, optional
+        Campaigns in the order they ran, earliest first.  Forward chaining then trains
+        each fold on every earlier campaign in full plus the current campaign's prefix
+        (``validation.campaign_order`` in the output); without it campaigns are chained
+        one by one and the order between them is not inferred.
 
     Returns
     -------
@@ -198,9 +203,14 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
 
     y = trials.y
     groups = trials.groups
+    if campaign_order is not None and not trials.campaign:
+        raise UsageError("a campaign order was given but the log has no campaign column",
+                         fix="name the campaign column with --campaign, or drop "
+                             "--campaign-order")
     scheme = choose_scheme(validation, order=trials.order_values if trials.order else None,
                            groups=groups if trials.campaign else None,
-                           n_rows=trials.n_used, seed=seed, quick=quick)
+                           n_rows=trials.n_used, seed=seed, quick=quick,
+                           campaign_order=campaign_order)
     X_enc = {enc: trials.features(enc) for enc in set(encodings.values())}
     folds = list(scheme.splitter.split(X_enc[next(iter(X_enc))], y, groups))
     t_cv = time.perf_counter()
@@ -234,9 +244,11 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     boot_idx = stratified_bootstrap_index(fold_of[tested], 200 if quick else 500, rng)
     metrics, intervals, recal = {}, {}, {}
     for n, p in preds.items():
-        metrics[n] = score_predictions(p["y"], p["mean"], p["std"])
+        # Rank metrics within folds, averaged, with their spread (scoring docstring).
+        metrics[n] = score_predictions(p["y"], p["mean"], p["std"], folds=p["fold"])
         intervals[n] = bootstrap_intervals(p["y"], p["mean"], p["std"], boot_idx)
-        recal[n] = cross_fitted_recalibration(p["y"], p["mean"], p["std"], p["fold"])
+        recal[n] = cross_fitted_recalibration(p["y"], p["mean"], p["std"], p["fold"],
+                                              forward=scheme.name == "forward")
     for n in names:
         metrics.setdefault(n, {k: float("nan") for k in METRIC_KEYS})
         metrics[n]["fit_seconds"] = fit_s[n]
@@ -244,6 +256,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
 
     rank_kwargs = dict(scales={n: recal[n]["scale"] for n in recal},
                        scaled_coverage={n: recal[n]["after_scale"]["coverage_90"] for n in recal},
+                       scoring_scales={n: recal[n]["scale_by_point"] for n in recal},
+                       blocks=_ranking_blocks(trials, tested, fold_of[tested]),
                        seed=task_seed(seed, "ranking"))
     fail_text = {n: [e["error"] for e in v] for n, v in failures.items()}
     ranking = rank_surrogates(preds, fail_text, fit_s, **rank_kwargs)
@@ -282,6 +296,10 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         validation={"scheme": scheme.name, "description": scheme.splitter.describe(),
                     "reason": scheme.reason, "n_folds": len(folds),
                     "tested_trials": int(len(tested)), "trials": int(len(y)),
+                    "campaign_order": (list(campaign_order) if campaign_order is not None
+                                       and scheme.name == "forward" and trials.campaign
+                                       else None),
+                    "ranking_blocks": ranking.mcs,
                     "secondary": secondary,
                     "metrics_by_scheme": by_scheme},
         predictions=pd.DataFrame(pred_rows, columns=["surrogate", "fold", "row", "y",
@@ -569,6 +587,26 @@ def _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, q
     return {"preds": preds, "failures": failures, "fit_s": fit_s, "pred_s": pred_s,
             "noise": noise, "info": info, "tested": tested, "fold_of": fold_of,
             "pred_rows": pred_rows, "fold_rows": fold_rows}
+
+
+def _ranking_blocks(trials, tested, folds) -> np.ndarray:
+    """Resampling blocks of the held-out points for the ranking's ties.
+
+    Campaign × fold cells when the log names campaigns (errors are correlated within a
+    campaign and within a fold).  With one campaign, each fold is cut into four runs of
+    consecutive held-out trials (by row), so the sign-flip test has 4 × folds blocks:
+    neighbouring trials stay together, but the test can still reach 5% (with four
+    blocks its smallest p-value would be 2/2^4).  Our choice; stated in the README.
+    """
+    folds = np.asarray(folds)
+    if trials.campaign and trials.n_campaigns >= 2:
+        camp = np.unique(np.asarray(trials.groups)[tested].astype(str), return_inverse=True)[1]
+        return camp * (int(folds.max()) + 1) + folds
+    out = np.zeros(len(folds), dtype=int)
+    for f in np.unique(folds):
+        rows = np.flatnonzero(folds == f)
+        out[rows] = f * 4 + (np.arange(len(rows)) * 4) // max(len(rows), 1)
+    return out
 
 
 def _nanmean(values) -> float:

@@ -65,6 +65,9 @@ def build_parser() -> argparse.ArgumentParser:
                    choices=["auto", "kfold", "forward", "campaign"],
                    help="validation scheme (default auto: forward chaining with an order "
                         "column, else leave-one-campaign-out with 3+ campaigns, else k-fold)")
+    a.add_argument("--campaign-order", metavar="A,B,C",
+                   help="campaigns in the order they ran, earliest first: forward chaining "
+                        "then trains each fold on every earlier campaign in full")
     a.add_argument("--acquisitions", help="acquisition settings to backtest, e.g. "
                    "'ei:xi=0,0.01;ucb:beta=1,4;thompson'")
     a.add_argument("--budget", type=int, help="trials in the next campaign (default from logs)")
@@ -183,6 +186,8 @@ def _assess(args) -> int:
             bar.start()
         a = assess(trials, seed=args.seed, quick=args.quick, surrogates=names or None,
                    validation=args.validation, jobs=args.jobs or default_jobs(),
+                   campaign_order=([c.strip() for c in args.campaign_order.split(",")]
+                                   if args.campaign_order else None),
                    scheduler=args.scheduler, acquisitions=args.acquisitions,
                    budget=args.budget, batch=args.batch, propose=args.propose,
                    max_fit_seconds=args.max_fit_seconds, backtest=not args.no_backtest,

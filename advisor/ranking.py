@@ -16,11 +16,21 @@ The rule, in order (also in the README):
    with the lowest mean held-out CRPS (a strictly proper score, Gneiting & Raftery
    2007; in the objective's units, of the version — raw or scaled — that is
    recommended).
-4. **Ties.**  Every model is compared with the leader on the same held-out points by a
-   paired bootstrap of the per-point CRPS difference (resampling points within folds,
-   2,000 replicates, percentile 95% interval).  A model whose interval contains zero is
-   *tied* with the leader.  The bootstrap also gives each model's probability of being
-   best (share of replicates in which its mean CRPS is lowest).
+4. **Ties.**  Held-out errors are correlated within a campaign and within a fold, so
+   the resampling unit is the block (campaign × fold cell; the fold when campaigns are
+   not known): a rescaled block bootstrap (Rao & Wu 1988), stratified by fold when
+   every fold has at least two blocks, 2,000 replicates, the same draws for every
+   model.  The models tied with the leader are the other members of the 95% *model
+   confidence set* (Hansen, Lunde & Nason 2011, the T_max elimination rule of their
+   §3.1.2): starting from all models passing the guard rails, the one whose mean CRPS
+   lies furthest above the set's average (in bootstrap standard errors) is removed
+   while the bootstrap p-value of that largest deviation is below 5%.  A model's MCS
+   p-value is the largest p-value met up to its removal; it is in the set (tied) when
+   that p-value is at least 0.05.  The set contains the best model with probability at
+   least 95% whatever the number of models, so the leader was chosen on the same data
+   without inflating the claim.  Each model's probability of being best is the share of
+   the same replicates in which its mean CRPS is the lowest (the leader re-selected in
+   every replicate).
 5. **Tie-breakers.**  Within the group tied with the leader, the acquisition backtest
    decides when it has run for all of them (Foldager, Jordahn, Hansen & Andersen 2023:
    calibration tracks optimization regret across model types but not within one);
@@ -30,9 +40,12 @@ The rule, in order (also in the README):
    own: timings vary between runs and machines, and the ranking must be reproducible.
    Models not tied follow in order of mean CRPS.
 
-The confidence words come from the leader's margin: *high* when no model is tied with
-it and its probability of being best is at least 0.9; *moderate* when no model is tied
-or its probability of being best is at least 0.6; *low* otherwise.
+The confidence words come from the largest MCS p-value among the models other than the
+recommended one (how plausible it still is that another model is as good): *high* when
+it is below 0.05 (the 95% set holds the recommended model alone), *moderate* when below
+0.20, *low* otherwise, and *low* whenever the recommended model fails a guard rail.
+Measured false-claim rates (equal models, 96 held-out points in 4 campaigns x 4 folds,
+see ``tests/test_ranking.py``) are in the README.
 """
 
 from __future__ import annotations
@@ -43,12 +56,73 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .scoring import gaussian_crps, stratified_bootstrap_index
+from .scoring import (block_bootstrap_means, has_point_scores, point_scores,
+                      stratified_bootstrap_index)
 
-__all__ = ["rank_surrogates", "Ranking", "COVERAGE_GUARD", "N_BOOTSTRAP"]
+__all__ = ["rank_surrogates", "Ranking", "COVERAGE_GUARD", "N_BOOTSTRAP", "MCS_LEVEL",
+           "model_confidence_set", "CONFIDENCE_THRESHOLDS"]
 
 COVERAGE_GUARD = (0.80, 0.97)
 N_BOOTSTRAP = 2000
+#: Size of the test behind the model confidence set: the set is a (1 - 0.05) set.
+MCS_LEVEL = 0.05
+#: Largest MCS p-value of another model below which the word applies.
+CONFIDENCE_THRESHOLDS = {"high": 0.05, "moderate": 0.20}
+
+
+def model_confidence_set(losses, blocks, n_draws: int, rng: np.random.Generator) -> np.ndarray:
+    """MCS p-values by the T_max elimination rule of Hansen, Lunde & Nason (2011).
+
+    ``losses`` (m, n) are per-point losses of m models on the same points and
+    ``blocks`` (n,) their resampling blocks.  At each step, for the models still in the
+    set, d_i is model i's mean loss minus the set's average and c_ib block b's share of
+    it (block sum of the centred loss over n, so d_i = sum_b c_ib); t_i = d_i / se_i with
+    se_i = sqrt(sum_b c_ib^2), and T_max = max_i t_i (HLN 2011 §3.1.2).  The null
+    distribution of T_max comes from flipping the sign of every block's contribution
+    at random (Rademacher weights, the wild cluster bootstrap of Cameron, Gelbach &
+    Miller 2008, REStat 90, 414-427), which stays well sized with as few as a dozen
+    blocks where a resampling bootstrap is too narrow.  The model with the largest
+    t_i is removed; its MCS p-value is the largest step p-value so far (HLN Def. 2); the
+    last model gets 1.  A model is in the (1-α) set when its p-value is >= α.
+    """
+    losses = np.atleast_2d(np.asarray(losses, float))
+    m, n = losses.shape
+    labels, inv = np.unique(np.asarray(blocks), return_inverse=True)
+    g = len(labels)
+    signs = rng.choice([-1.0, 1.0], size=(n_draws, g))
+    pvals = np.ones(m)
+    alive = list(range(m))
+    running = 0.0
+    scale = max(float(np.mean(np.abs(losses))), 1e-300)
+    while len(alive) > 1:
+        a = np.array(alive)
+        centred = losses[a] - losses[a].mean(axis=0)          # loss minus set average
+        d = centred.mean(axis=1)
+        c = np.zeros((len(a), g))
+        np.add.at(c.T, inv, centred.T)
+        c /= n
+        # Under the null every block's contribution is symmetric about zero, so the
+        # uncentred sum of squares (unchanged by any sign flip) studentizes both the
+        # statistic and its flips: a randomization test, exact under that symmetry.
+        # Models that agree to rounding have se ~ 0; they are not told apart.
+        se = np.maximum(np.sqrt((c**2).sum(axis=1)), 1e-8 * scale)
+        t = d / se
+        null = (signs @ c.T) / se[None, :]
+        p = float(np.mean(null.max(axis=1) >= t.max() - 1e-12))
+        running = max(running, p)
+        worst = int(a[int(np.argmax(t))])
+        pvals[worst] = running
+        alive.remove(worst)
+    return pvals
+
+
+def _default_blocks(preds, names):
+    p = preds[names[0]]
+    fold = np.asarray(p["fold"])
+    if p.get("campaign") is not None:
+        camp = np.unique(np.asarray(p["campaign"]).astype(str), return_inverse=True)[1]
+        return camp * (int(fold.max()) + 1) + fold
+    return fold
 
 
 @dataclass
@@ -62,6 +136,8 @@ class Ranking:
     #: Timing-based notes ("tied and fits 5x faster"), kept apart from ``reasons`` because
     #: they vary between runs; exported under a key containing "seconds".
     cheaper_by_fit_seconds: list[str] = field(default_factory=list)
+    #: How ties were decided: MCS level, number of resampling blocks, stratification.
+    mcs: dict = field(default_factory=dict)
 
 
 def _spearman_lower(mean, y, folds, idx) -> float:
@@ -99,14 +175,18 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
                     fit_seconds: dict[str, float], *, scales: dict[str, float] | None = None,
                     scaled_coverage: dict[str, float] | None = None,
                     backtest_score: dict[str, float] | None = None,
-                    seed: int = 0) -> Ranking:
+                    seed: int = 0, blocks=None,
+                    scoring_scales: dict | None = None) -> Ranking:
     """Apply the ranking rule of this module's docstring.
 
     Parameters
     ----------
-    preds : {name: {"y", "mean", "std", "fold"}}
+    preds : {name: {"y", "mean", "std", "fold"[, "campaign", "nll_pt", "crps_pt", "pit"]}}
         Pooled held-out predictions of each *working* model, on the same points in the
-        same order.
+        same order.  With ``nll_pt``, ``crps_pt`` and ``pit`` (per-point scores of a
+        non-Gaussian predictive at variance scale 1, see
+        :func:`advisor.scoring.point_scores`) those replace the Gaussian closed forms
+        and the model gets no variance scale.
     failures : {name: [error text per failed fold]}
         Models with at least one failed fold (not in ``preds``).
     fit_seconds : {name: mean seconds per fit}
@@ -115,32 +195,51 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
         scaled coverage (``scaled_coverage``) meets it is scored and recommended scaled.
     backtest_score : {name: score}, optional
         Lower is better; breaks ties within the group tied with the leader.
+    blocks : array (n,), optional
+        Resampling block of each point; default campaign × fold when ``preds`` carry
+        ``campaign``, else the fold.
+    scoring_scales : {name: float or array (n,)}, optional
+        Cross-fitted variance scale of each point (its fold's scale fitted on the other
+        folds) used to score a scaled model's CRPS; default the scalar in ``scales``.
     """
     rng = np.random.default_rng(seed)
     scales = scales or {}
+    scoring_scales = scoring_scales or {}
     scaled_coverage = scaled_coverage or {}
     backtest_score = backtest_score or {}
     names = list(preds)
     rows: dict[str, dict] = {}
     reasons: dict[str, list[str]] = {n: [] for n in list(preds) + list(failures)}
+    mcs_info: dict = {"level": MCS_LEVEL, "n_blocks": 0, "stratified_by_fold": False}
 
     if names:
-        y = preds[names[0]]["y"]
-        folds = preds[names[0]]["fold"]
-        idx = stratified_bootstrap_index(folds, N_BOOTSTRAP, rng)
+        folds = np.asarray(preds[names[0]]["fold"])
+        blocks = np.asarray(blocks) if blocks is not None else _default_blocks(preds, names)
+        # Stratify by fold only when every fold has at least two blocks to resample.
+        per_fold = [len(np.unique(blocks[folds == f])) for f in np.unique(folds)]
+        strata = folds if min(per_fold) >= 2 else None
+        mcs_info.update(n_blocks=int(len(np.unique(blocks))),
+                        stratified_by_fold=strata is not None)
+        idx = stratified_bootstrap_index(folds, 400, rng)
         crps_pts, use_scale = {}, {}
         for n in names:
             p = preds[n]
-            cov_raw = float(np.mean(np.abs(p["y"] - p["mean"]) <= 1.6448536269514722 * p["std"]))
-            s = float(scales.get(n, 1.0))
-            cov_s = float(scaled_coverage.get(n, cov_raw))
+            own = has_point_scores(p)
+            pit_raw = point_scores(p)["pit"]
+            cov_raw = float(np.mean(np.abs(pit_raw - 0.5) <= 0.45))
+            # A non-Gaussian predictive (its own per-point scores) gets no variance scale.
+            s = 1.0 if own else float(scales.get(n, 1.0))
+            cov_s = cov_raw if own else float(scaled_coverage.get(n, cov_raw))
             raw_ok = COVERAGE_GUARD[0] <= cov_raw <= COVERAGE_GUARD[1]
             scaled_ok = COVERAGE_GUARD[0] <= cov_s <= COVERAGE_GUARD[1]
             # Scale only when it is what rescues coverage (or the raw model is already
             # fine and the scale is a large correction), so advice stays minimal.
-            use_scale[n] = (not raw_ok and scaled_ok) or (raw_ok and scaled_ok and abs(np.log(s)) > np.log(1.25))
-            std = p["std"] * (s if use_scale[n] else 1.0)
-            crps_pts[n] = gaussian_crps(p["y"], p["mean"], std)
+            use_scale[n] = not own and ((not raw_ok and scaled_ok) or
+                                        (raw_ok and scaled_ok and abs(np.log(s)) > np.log(1.25)))
+            # The CRPS is scored with the cross-fitted scale (each fold's from the other
+            # folds) when given, like the coverage; the recommended scale is ``s``.
+            score_scale = scoring_scales.get(n, s) if use_scale[n] else 1.0
+            crps_pts[n] = point_scores(p, score_scale)["crps"]
             cover_ok = raw_ok or scaled_ok
             rho_lo = _spearman_lower(p["mean"], p["y"], p["fold"], idx)
             order_ok = rho_lo > 0
@@ -163,17 +262,30 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
         passing = [n for n in names if rows[n]["guard_coverage"] and rows[n]["guard_order"]]
         pool = passing or names
         leader = min(pool, key=lambda n: rows[n]["crps"])
-        boot_means = {n: crps_pts[n][idx].mean(axis=1) for n in names}
-        stacked = np.vstack([boot_means[n] for n in names])
-        winners = np.argmin(stacked, axis=0)
+        losses = np.vstack([crps_pts[n] for n in names])
+        boot = block_bootstrap_means(losses, blocks, N_BOOTSTRAP, rng, strata=strata)
+        in_pool = np.array([n in pool for n in names])
+        pool_boot = boot[in_pool]
+        winners = np.argmin(pool_boot, axis=0)
+        pool_names = [n for n in names if n in pool]
+        pv = model_confidence_set(losses[in_pool], blocks, N_BOOTSTRAP, rng)
+        mcs_p = dict(zip(pool_names, pv))
+        li = names.index(leader)
         for i, n in enumerate(names):
-            d = boot_means[n] - boot_means[leader]
+            if n not in pool:  # outside the set's candidates: a paired test with the leader
+                mcs_p[n] = float(model_confidence_set(losses[[i, li]], blocks,
+                                                      N_BOOTSTRAP, rng)[0])
+        li = names.index(leader)
+        for i, n in enumerate(names):
+            d = boot[i] - boot[li]
             lo, hi = np.quantile(d, [0.025, 0.975])
+            pb = (float(np.mean(winners == pool_names.index(n))) if n in pool else 0.0)
+            pval = mcs_p.get(n)
+            in_set = bool(n == leader or (pval is not None and pval >= MCS_LEVEL))
             rows[n].update(crps_diff=float(crps_pts[n].mean() - crps_pts[leader].mean()),
                            crps_diff_low=float(lo), crps_diff_high=float(hi),
-                           p_best=float(np.mean(winners == i)),
-                           tied_with_leader=bool(n == leader or lo <= 0 <= hi))
-        _ = y
+                           p_best=pb, mcs_pvalue=float(pval) if pval is not None else np.nan,
+                           in_mcs=in_set, tied_with_leader=in_set)
     else:
         leader = None
 
@@ -223,7 +335,7 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
         reasons[top].insert(0, statement)
     return Ranking(table=table, leader=top, confidence=confidence, statement=statement,
                    reasons=reasons, method=__doc__.split("The confidence")[0].strip(),
-                   cheaper_by_fit_seconds=cheaper)
+                   cheaper_by_fit_seconds=cheaper, mcs=mcs_info)
 
 
 def _confidence(top, rows, ordered, backtest_score):
@@ -234,9 +346,15 @@ def _confidence(top, rows, ordered, backtest_score):
             and rows[n].get("tied_with_leader")
             and rows[n]["guard_coverage"] and rows[n]["guard_order"]]
     pb = r["p_best"]
-    if not ties and pb >= 0.9:
+    rivals = [rows[n].get("mcs_pvalue") for n in ordered if n != top
+              and rows[n].get("status") == "ok"]
+    # When a tie-breaker put ``top`` first, the lower-CRPS leader is among the rivals
+    # with p-value 1, so the word is "low".
+    rivals = [p for p in rivals if p is not None and np.isfinite(p)]
+    worst = max(rivals, default=0.0)
+    if worst < CONFIDENCE_THRESHOLDS["high"]:
         level = "high"
-    elif not ties or pb >= 0.6:
+    elif worst < CONFIDENCE_THRESHOLDS["moderate"]:
         level = "moderate"
     else:
         level = "low"
@@ -248,12 +366,14 @@ def _confidence(top, rows, ordered, backtest_score):
     elif ties:
         how = ("the backtest" if top in backtest_score else "mean CRPS")
         text = (f"{top} is statistically tied with {', '.join(ties)} on held-out CRPS; "
-                f"{how} breaks the tie. Probability of being best {pb:.2f}.")
+                f"{how} breaks the tie (95% model confidence set). "
+                f"Probability of being best {pb:.2f}.")
     elif others:
         ru = others[0]
         text = (f"{top} has the lowest held-out CRPS; its lead over {ru} "
                 f"({rows[ru]['crps_diff']:.4g}, 95% CI {rows[ru]['crps_diff_low']:.4g} to "
-                f"{rows[ru]['crps_diff_high']:.4g}) is unlikely to be noise. "
+                f"{rows[ru]['crps_diff_high']:.4g}; largest rival MCS p-value "
+                f"{worst:.3f}) is unlikely to be noise. "
                 f"Probability of being best {pb:.2f}.")
     else:
         text = f"{top} is the only working model."

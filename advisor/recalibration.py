@@ -39,7 +39,7 @@ def fit_isotonic(pit) -> IsotonicRegression:
     return IsotonicRegression(y_min=0.0, y_max=1.0, out_of_bounds="clip").fit(pit, freq)
 
 
-def cross_fitted_recalibration(y, mean, std, folds) -> dict:
+def cross_fitted_recalibration(y, mean, std, folds, *, forward: bool = False) -> dict:
     """Scores before and after recalibration, each fold scored with maps from the others.
 
     Parameters
@@ -48,11 +48,15 @@ def cross_fitted_recalibration(y, mean, std, folds) -> dict:
         Pooled held-out predictions.
     folds : array (n,) of int
         Which fold each prediction was held out in.
+    forward : bool
+        Forward chaining: fold j's maps are fitted on the earlier folds only (never on
+        later trials); the first fold, with nothing before it, is left unchanged.
 
     Returns
     -------
     dict
         ``scale`` (fitted on all points, for the recommendation), ``scale_by_fold``,
+        ``scale_by_point`` (each point's cross-fitted scale, for scoring),
         ``before`` / ``after_scale`` / ``after_isotonic`` score dicts with ``nll``,
         ``crps``, ``coverage_*`` and ``calibration_error`` (NLL and CRPS are not
         defined for the isotonic map's non-Gaussian distribution and are omitted there).
@@ -66,7 +70,7 @@ def cross_fitted_recalibration(y, mean, std, folds) -> dict:
     scales = {}
     for f in fold_ids:
         here = folds == f
-        other = ~here
+        other = (folds < f) if forward else ~here
         if other.sum() < 5:  # a single fold: nothing else to fit on, leave unchanged
             s, iso_pit = 1.0, pit_raw[here]
         else:
@@ -78,6 +82,8 @@ def cross_fitted_recalibration(y, mean, std, folds) -> dict:
     return {
         "scale": variance_scale(y, mean, std),
         "scale_by_fold": scales,
+        "scale_by_point": scaled_std / std,
+        "fitted_on": "earlier folds" if forward else "other folds",
         "before": _pit_scores(pit_raw) | _gauss_scores(y, mean, std),
         "after_scale": _pit_scores(stats.norm.cdf((y - mean) / scaled_std))
         | _gauss_scores(y, mean, scaled_std),

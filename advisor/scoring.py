@@ -25,6 +25,7 @@ from scipy import stats
 
 __all__ = ["score_predictions", "gaussian_nll", "gaussian_crps", "interval_coverage",
            "calibration_error", "sharpness", "best_region_scores", "METRIC_KEYS",
+           "point_scores", "block_bootstrap_means", "within_fold_rank_scores",
            "LOWER_IS_BETTER", "COVERAGE_LEVELS", "CALIBRATION_LEVELS"]
 
 COVERAGE_LEVELS = (0.5, 0.9, 0.95)
@@ -149,7 +150,7 @@ def best_region_scores(y, mean, *, quantile: float = 0.25, top_k: int = 3) -> di
     return {"top_quarter_spearman": rho, "top_hit_rate": hit}
 
 
-def score_predictions(y, mean, std) -> dict:
+def score_predictions(y, mean, std, folds=None) -> dict:
     """All scores of Gaussian predictions ``(mean, std)`` against observations ``y``.
 
     Returns
@@ -162,7 +163,10 @@ def score_predictions(y, mean, std) -> dict:
         :func:`calibration_error`); ``sharpness`` mean predictive variance;
         ``spearman``, ``kendall`` rank correlation of mean with ``y``
         (``scipy.stats``; NaN when undefined); ``top_quarter_spearman`` and
-        ``top_hit_rate`` (see :func:`best_region_scores`, minimization).
+        ``top_hit_rate`` (see :func:`best_region_scores`, minimization).  With
+        ``folds`` (pooled held-out predictions), those four rank metrics are taken
+        within each fold and averaged (:func:`within_fold_rank_scores`), and their
+        spread across folds is added as ``<metric>_fold_sd`` and ``<metric>_folds``.
     """
     y, mean, std = _as_arrays(y, mean, std)
     out = {
@@ -176,6 +180,8 @@ def score_predictions(y, mean, std) -> dict:
     out["spearman"] = _rank_corr(mean, y, stats.spearmanr)
     out["kendall"] = _rank_corr(mean, y, stats.kendalltau)
     out.update(best_region_scores(y, mean))
+    if folds is not None:
+        out.update(within_fold_rank_scores(y, mean, folds))
     return out
 
 
@@ -232,3 +238,119 @@ def bootstrap_intervals(y, mean, std, idx, level: float = 0.95) -> dict:
         res[k] = [float(np.quantile(v, a)), float(np.quantile(v, 1 - a))] if v.size else [
             float("nan"), float("nan")]
     return res
+
+
+def block_bootstrap_means(values, blocks, n_boot: int, rng: np.random.Generator,
+                          strata=None) -> np.ndarray:
+    """Replicate means of each row of ``values`` under a rescaled block bootstrap.
+
+    Whole blocks (e.g. campaign × fold cells, whose held-out errors are correlated)
+    are drawn with replacement, within each stratum when ``strata`` (one label per
+    point, constant within a block) is given, and the same draws serve every row, so
+    differences between rows are paired.  With few blocks per stratum the plain
+    bootstrap variance is too small by the factor (G-1)/G; each stratum's deviation from
+    its mean is therefore multiplied by sqrt(G/(G-1)), the rescaling bootstrap of Rao &
+    Wu (1988), "Resampling inference with complex survey data", JASA 83, 231-241
+    (their Eq. 2.4 with m_h = n_h - 1 in the form of §3).  A stratum with one block
+    contributes no variance.
+
+    Parameters
+    ----------
+    values : array (m, n)
+        One row per model (per-point losses).
+    blocks : array (n,)
+        Block label of each point.
+    n_boot : int
+    rng : numpy Generator
+    strata : array (n,), optional
+
+    Returns
+    -------
+    array (m, n_boot)
+        Replicate means; each stratum keeps its share of the points.
+    """
+    values = np.atleast_2d(np.asarray(values, float))
+    blocks = np.asarray(blocks)
+    n = values.shape[1]
+    strata = np.zeros(n, dtype=int) if strata is None else np.asarray(strata)
+    out = np.zeros((values.shape[0], n_boot))
+    for h in np.unique(strata):
+        in_h = strata == h
+        labels, inv = np.unique(blocks[in_h], return_inverse=True)
+        g = len(labels)
+        sums = np.zeros((values.shape[0], g))
+        np.add.at(sums.T, inv, values[:, in_h].T)
+        counts = np.bincount(inv, minlength=g).astype(float)
+        mean_h = sums.sum(axis=1) / counts.sum()
+        share = in_h.sum() / n
+        if g < 2:
+            out += share * mean_h[:, None]
+            continue
+        draws = rng.integers(0, g, size=(n_boot, g))
+        w = np.zeros((n_boot, g))
+        np.add.at(w, (np.repeat(np.arange(n_boot), g), draws.ravel()), 1.0)
+        rep = (sums @ w.T) / (counts @ w.T)[None, :]
+        out += share * (mean_h[:, None] + np.sqrt(g / (g - 1)) * (rep - mean_h[:, None]))
+    return out
+
+
+#: Keys a model's pooled predictions may carry for a non-Gaussian predictive
+#: distribution, each an array aligned with ``y`` computed at variance scale 1.
+POINT_SCORE_KEYS = ("nll_pt", "crps_pt", "pit")
+
+
+def has_point_scores(p: dict) -> bool:
+    """True when ``p`` carries its own per-point scores (a non-Gaussian predictive)."""
+    return all(p.get(k) is not None for k in POINT_SCORE_KEYS)
+
+
+def point_scores(p: dict, scale=1.0) -> dict:
+    """Per-point ``nll``, ``crps`` and ``pit`` of one model's pooled predictions.
+
+    ``p`` has ``y``, ``mean``, ``std`` and optionally ``nll_pt``, ``crps_pt``, ``pit``
+    (a non-Gaussian predictive distribution's own scores at variance scale 1); when
+    present those are returned as they are and ``scale`` is ignored.  Otherwise the
+    Gaussian closed forms ([GRWG2005] Eq. 5 for CRPS) at std·scale (``scale`` a number
+    or one value per point).
+    """
+    if has_point_scores(p):
+        return {"nll": np.asarray(p["nll_pt"], float), "crps": np.asarray(p["crps_pt"], float),
+                "pit": np.asarray(p["pit"], float)}
+    y = np.asarray(p["y"], float)
+    std = np.asarray(p["std"], float) * np.broadcast_to(np.asarray(scale, float), y.shape)
+    return {"nll": gaussian_nll(y, p["mean"], std), "crps": gaussian_crps(y, p["mean"], std),
+            "pit": stats.norm.cdf((y - np.asarray(p["mean"], float)) / std)}
+
+
+def within_fold_rank_scores(y, mean, folds) -> dict:
+    """Rank metrics computed within each fold, then averaged, with their spread.
+
+    For each fold with at least three points: Spearman's rho and Kendall's tau of
+    ``mean`` with ``y`` (scipy), and :func:`best_region_scores`.  Returns, per metric,
+    the mean over the folds where it is defined (``spearman`` …), the standard
+    deviation across those folds (``spearman_fold_sd``, ddof=1, NaN with one fold) and
+    the number of folds it rests on (``spearman_folds``).  Averaging within folds keeps
+    a model from scoring by shifting its level between folds (each fold has its own
+    training set), and ``top_hit_rate`` becomes the share of folds whose predicted best
+    is among the three truly best.
+    """
+    y = np.asarray(y, float).ravel()
+    mean = np.asarray(mean, float).ravel()
+    folds = np.asarray(folds).ravel()
+    per = {k: [] for k in ("spearman", "kendall", "top_quarter_spearman", "top_hit_rate")}
+    for f in np.unique(folds):
+        sel = folds == f
+        if sel.sum() < 3:
+            continue
+        per["spearman"].append(_rank_corr(mean[sel], y[sel], stats.spearmanr))
+        per["kendall"].append(_rank_corr(mean[sel], y[sel], stats.kendalltau))
+        for k, v in best_region_scores(y[sel], mean[sel]).items():
+            per[k].append(v)
+    out = {}
+    for k, vals in per.items():
+        v = np.asarray(vals, float)
+        v = v[np.isfinite(v)]
+        out[k] = float(v.mean()) if v.size else float("nan")
+        out[f"{k}_fold_sd"] = float(v.std(ddof=1)) if v.size > 1 else float("nan")
+        out[f"{k}_folds"] = int(v.size)
+    return out

@@ -21,8 +21,8 @@ from sklearn.model_selection import KFold, LeaveOneGroupOut
 
 from .errors import UsageError
 
-__all__ = ["ShuffledKFold", "ForwardChaining", "LeaveOneCampaignOut", "choose_scheme",
-           "SCHEMES"]
+__all__ = ["ShuffledKFold", "ForwardChaining", "SequentialCampaignChaining",
+           "LeaveOneCampaignOut", "choose_scheme", "SCHEMES"]
 
 SCHEMES = ("auto", "kfold", "forward", "campaign")
 
@@ -126,6 +126,73 @@ class ForwardChaining:
                 "trials before theirs), as a surrogate is used during a campaign")
 
 
+class SequentialCampaignChaining(ForwardChaining):
+    """Forward chaining in time across campaigns that ran one after another.
+
+    ``campaign_order`` lists the campaigns in the order they ran.  Each campaign's
+    trials, sorted by ``order``, are cut as in :class:`ForwardChaining`; fold (c, j)
+    tests block j of campaign c and trains on every trial of the campaigns before c in
+    full plus campaign c's trials before that block, so no training trial is later than
+    any test trial of its fold.  The folds are yielded campaign by campaign (``n_splits``
+    per campaign long enough to be tested).
+
+    Parameters
+    ----------
+    order : array of float
+        Trial order within its campaign, one per row.
+    campaign_order : sequence
+        Campaign labels, earliest first; every campaign of ``groups`` must appear.
+    n_splits, initial_fraction : as in :class:`ForwardChaining`.
+    """
+
+    name = "forward"
+
+    def __init__(self, order, campaign_order, n_splits: int = 4,
+                 initial_fraction: float = 0.4):
+        super().__init__(order, n_splits=n_splits, initial_fraction=initial_fraction)
+        self.campaign_order = campaign_order
+
+    def _plan(self, groups):
+        groups = np.asarray(groups).astype(str)
+        ranks = {str(c): i for i, c in enumerate(self.campaign_order)}
+        missing = sorted(set(groups) - set(ranks))
+        if missing:
+            raise UsageError(f"campaign order does not list campaign(s) {', '.join(missing)}",
+                             fix="list every campaign, earliest first")
+        plan = dict(zip(_unique_in_order(groups), self._blocks(groups)))
+        return sorted(plan.items(), key=lambda kv: ranks[kv[0]])
+
+    def get_n_splits(self, X=None, y=None, groups=None) -> int:
+        if groups is None:
+            return self.n_splits
+        return self.n_splits * sum(edges is not None for _, (_, edges) in self._plan(groups))
+
+    def split(self, X, y=None, groups=None):
+        if len(self.order) != len(X):
+            raise ValueError("order must have one value per row")
+        if groups is None:
+            yield from super().split(X, y, groups)
+            return
+        plan = self._plan(groups)
+        if all(edges is None for _, (_, edges) in plan):
+            raise UsageError("forward chaining needs campaigns of at least "
+                             f"{self.n_splits + 2} ordered trials",
+                             fix="use --validation kfold, or log more trials per campaign")
+        earlier: list[np.ndarray] = []
+        for _, (rows, edges) in plan:
+            if edges is not None:
+                for j in range(self.n_splits):
+                    train = np.concatenate(earlier + [rows[:edges[j]]])
+                    yield np.sort(train), np.sort(rows[edges[j]:edges[j + 1]])
+            earlier.append(rows)
+
+    def describe(self) -> str:
+        return (f"forward chaining across campaigns in the order they ran "
+                f"({', '.join(map(str, self.campaign_order))}): each of {self.n_splits} "
+                "consecutive test blocks of a campaign is predicted from every earlier "
+                "campaign in full and the trials before it in its own campaign")
+
+
 class LeaveOneCampaignOut:
     """Hold out one whole campaign per fold (needs at least three campaigns)."""
 
@@ -155,9 +222,13 @@ class SchemeChoice:
 
 
 def choose_scheme(requested: str, *, order=None, groups=None, n_rows: int,
-                  seed: int = 0, quick: bool = False) -> SchemeChoice:
+                  seed: int = 0, quick: bool = False,
+                  campaign_order=None) -> SchemeChoice:
     """Pick the validation scheme and say why.
 
+    With ``campaign_order`` (campaigns earliest first) forward chaining runs across
+    campaigns (:class:`SequentialCampaignChaining`); without it, campaign order is not
+    inferred and each campaign is chained on its own.
     ``auto`` takes forward chaining when the log has an order column, else
     leave-one-campaign-out with at least three campaigns, else shuffled k-fold.
     """
@@ -179,6 +250,10 @@ def choose_scheme(requested: str, *, order=None, groups=None, n_rows: int,
         if order is None:
             raise UsageError("forward chaining needs an order column",
                              fix="name it with --order, or use --validation kfold")
+        if campaign_order is not None and groups is not None:
+            return SchemeChoice(SequentialCampaignChaining(order, list(campaign_order),
+                                                           n_splits=4),
+                                "forward", why + "; campaigns in the given order")
         return SchemeChoice(ForwardChaining(order, n_splits=4), "forward", why)
     if requested == "campaign":
         return SchemeChoice(LeaveOneCampaignOut(), "campaign", why)

@@ -370,12 +370,16 @@ def test_reading_rule_on_synthetic_curves():
     sizes = [10, 20, 30, 40]
     falling = np.array([[1.0, 0.8, 0.6, 0.4], [1.1, 0.85, 0.62, 0.41],
                         [0.9, 0.75, 0.58, 0.39]])
-    improving, flat_n, text = _learning._read_curve(sizes, falling)
+    improving, flat_n, text, test = _learning._read_curve(sizes, falling)
     assert improving is True and flat_n is None and text.startswith("still improving")
     level = np.array([[1.0, 0.5, 0.52, 0.49], [1.1, 0.48, 0.47, 0.51],
                       [0.9, 0.51, 0.5, 0.5]])
-    improving, flat_n, text = _learning._read_curve(sizes, level)
+    improving, flat_n, text, test = _learning._read_curve(sizes, level)
     assert improving is False and flat_n == 20 and text.startswith("flat beyond ~20")
+    # the reading's test is scipy's one-sided paired t-test of sizes[1] vs sizes[-1]
+    ref = stats.ttest_rel(level[:, 1], level[:, -1], alternative="greater")
+    assert test["df"] == 2 and test["t"] == pytest.approx(ref.statistic)
+    assert test["p_one_sided"] == pytest.approx(ref.pvalue)
 
 
 @pytest.mark.parametrize("seed", [0, 1])
@@ -518,8 +522,13 @@ def test_cost_projection_schema_and_limit():
         e = res["surrogates"][name]
         assert set(e) == {"sizes", "fit_seconds", "predict_seconds", "fit_seconds_exponent",
                           "predict_seconds_exponent", "projected_size",
-                          "projected_seconds_per_iteration", "over_max_fit_seconds", "error"}
+                          "projected_seconds_per_iteration", "over_max_fit_seconds", "error",
+                          "fit_seconds_exponent_raw", "predict_seconds_exponent_raw",
+                          "seconds_exponent_note"}
         assert e["sizes"] == [12, 24, 48] and e["error"] is None
+        # a negative exponent is never shown as a growth rate
+        for k in ("fit_seconds_exponent", "predict_seconds_exponent"):
+            assert e[k] is None or e[k] >= 0
         assert e["over_max_fit_seconds"] is True  # any positive time exceeds 1e-9 s
         assert len(e["fit_seconds"]) == 3 and e["projected_seconds_per_iteration"] > 0
     assert json.dumps(res, allow_nan=False)
@@ -560,3 +569,22 @@ def test_freezing_is_opt_in():
     fp = frozen.planning["proposals"]
     assert fp["freeze_applied"] is True and fp["frozen"] == fp["freeze_candidates"]
     assert (frozen.proposals["d"] == fp["frozen"]["d"]).all()
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_weak_but_sure_effect_is_not_frozen(seed):
+    # y = a + b + c + 0.5ab + 0.45 d + small noise: d explains about 6% of the variance
+    # (Var(0.45 d) = 0.2025/12 against a total near 0.29, closed form for uniforms), a
+    # weak effect the data pin down well: above the 5% margin, so no positive evidence
+    # that it is small, and d must not be frozen.
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(0, 1, (60, 4))
+    y = (X[:, 0] + X[:, 1] + X[:, 2] + 0.5 * X[:, 0] * X[:, 1] + 0.45 * X[:, 3]
+         + 0.02 * rng.normal(size=60))
+    frame = pd.DataFrame(X, columns=list("abcd"))
+    frame["y"] = y
+    res = P.parameter_relevance(_table(frame, list("abcd")), "gp", seed=seed, quick=True)
+    d = res["parameters"][3]
+    assert d["freeze"] is False
+    assert d["total_interval"][1] >= P.TOTAL_EFFECT_FREEZE or \
+        d["permutation_interval"][1] >= P.PERMUTATION_FREEZE

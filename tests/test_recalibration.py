@@ -43,3 +43,17 @@ def test_each_fold_uses_maps_fitted_elsewhere():
     out = cross_fitted_recalibration(y, np.zeros(300), std, folds)
     assert out["scale_by_fold"]["0"] < 2.0
     assert out["scale_by_fold"]["1"] > 3.0
+
+
+def test_forward_chaining_fits_each_fold_on_earlier_folds_only():
+    # Variance scale closed form s = sqrt(mean z^2) (Kuleshov et al. 2018 NLL optimum):
+    # fold 2's scale must be that of folds 0-1 alone; fold 0 has nothing before it.
+    rng = np.random.default_rng(0)
+    y = rng.normal(size=60)
+    folds = np.repeat([0, 1, 2], 20)
+    std = np.where(folds == 2, 0.1, 1.0)          # fold 2 badly overconfident
+    out = cross_fitted_recalibration(y, np.zeros(60), std, folds, forward=True)
+    z = y[folds < 2]
+    assert out["scale_by_fold"]["2"] == pytest.approx(np.sqrt(np.mean(z**2)))
+    assert out["scale_by_fold"]["0"] == 1.0
+    assert out["fitted_on"] == "earlier folds"

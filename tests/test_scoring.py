@@ -84,3 +84,23 @@ def test_score_keys_and_bad_input():
     assert out["sharpness"] == pytest.approx(1.0)
     with pytest.raises(ValueError, match="positive"):
         score_predictions([1.0], [1.0], [0.0])
+
+
+def test_rank_metrics_are_within_fold_averages_on_a_hand_made_example():
+    from advisor.scoring import score_predictions
+    # Fold 0: mean orders y perfectly (rho = tau = 1, predicted best is the true best);
+    # fold 1: exactly reversed (rho = tau = -1, predicted best is the true worst of 4,
+    # not among the 3 best).  Pooled, the level shift between folds would give a
+    # positive correlation; within folds the average is 0 and the top-hit rate 1/2.
+    y = np.array([1., 2., 3., 4., 11., 12., 13., 14.])
+    mean = np.array([1., 2., 3., 4., 24., 23., 22., 21.])
+    folds = np.repeat([0, 1], 4)
+    s = score_predictions(y, mean, np.ones(8), folds=folds)
+    assert s["spearman"] == pytest.approx(0.0)
+    assert s["kendall"] == pytest.approx(0.0)
+    assert s["top_hit_rate"] == pytest.approx(0.5)
+    assert s["spearman_fold_sd"] == pytest.approx(np.std([1, -1], ddof=1))
+    assert s["spearman_folds"] == 2
+    # pooled value for contrast, from scipy directly
+    from scipy import stats
+    assert stats.spearmanr(mean, y).statistic > 0.5

@@ -65,3 +65,23 @@ def test_auto_scheme_choice():
     assert choose_scheme("auto", order=None, groups=None, n_rows=30).name == "kfold"
     with pytest.raises(UsageError):
         choose_scheme("forward", order=None, groups=g, n_rows=30)
+
+
+def test_sequential_campaign_chaining_never_trains_on_a_later_trial():
+    # Issue 13's check: with campaigns run one after another, a fold's training trials
+    # are all earlier (in global time) than every test trial of that fold.
+    from advisor.validation import SequentialCampaignChaining
+    rng = np.random.default_rng(0)
+    camps = np.repeat(["b", "a", "c"], [20, 15, 25])
+    order = np.concatenate([rng.permutation(20), rng.permutation(15), rng.permutation(25)])
+    ran = ["a", "b", "c"]                       # campaign a ran first, then b, then c
+    global_time = np.array([ran.index(c) for c in camps]) * 1000 + order
+    sp = SequentialCampaignChaining(order.astype(float), ran, n_splits=3)
+    folds = list(sp.split(np.zeros((60, 1)), groups=camps))
+    assert len(folds) == sp.get_n_splits(groups=camps) == 9
+    for train, test in folds:
+        assert global_time[train].max() < global_time[test].min()
+        assert len(set(camps[test])) == 1
+    # the last campaign's folds train on both earlier campaigns in full
+    train, test = folds[-3]
+    assert set(np.flatnonzero(np.isin(camps, ["a", "b"]))) <= set(train)

@@ -30,13 +30,14 @@ RELEVANCE_CAUTION = (
 #: Freeze rule, part 1: the upper end of the bootstrap interval of the total Sobol index
 #: must lie below this (common practice in screening: 0.05 of the output variance).
 TOTAL_EFFECT_FREEZE = 0.05
-#: Freeze rule, part 2: the lower end of the permutation-importance interval (increase
-#: in held-out MSE as a share of the objective's variance) must not exceed this: the
-#: importance is not significantly above a negligible 1% of the variance.  Our choice:
-#: "not significantly above zero" alone flags nothing once the folds agree that a
-#: parameter's importance is tiny but positive (measured: 2e-4 of the variance for a
-#: parameter with no effect at all, which a GP still uses slightly to fit noise).
-PERMUTATION_FREEZE = 0.01
+#: Freeze rule, part 2: the *upper* end of the permutation-importance interval (increase
+#: in held-out MSE as a share of the objective's variance, t-interval over folds) must
+#: lie below this margin: positive evidence that the effect is small, not merely no
+#: evidence that it is large.  For independent inputs, permuting X_j raises the MSE by
+#: twice the variance its total effect explains (Gregorutti, Michel & Saint-Pierre 2017,
+#: Statistics and Computing 27, Prop. 1; from memory), so the margin is
+#: 2 x TOTAL_EFFECT_FREEZE: the same 5%-of-variance effect on both scales.
+PERMUTATION_FREEZE = 2 * TOTAL_EFFECT_FREEZE
 
 #: Central confidence level of the bootstrap and permutation intervals.
 _INTERVAL_LEVEL = 0.95

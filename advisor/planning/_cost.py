@@ -149,10 +149,18 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
         fit_t = _power_law_at(sizes, fit_s, target)
         pred_t = _power_law_at(sizes, pred_s, target)
         per_iter = None if fit_t is None or pred_t is None else fit_t + pred_t
+        raw_fit, raw_pred = scaling_exponent(sizes, fit_s), scaling_exponent(sizes, pred_s)
         entry.update(
             fit_seconds=[float(v) for v in fit_s], predict_seconds=[float(v) for v in pred_s],
-            fit_seconds_exponent=scaling_exponent(sizes, fit_s),
-            predict_seconds_exponent=scaling_exponent(sizes, pred_s),
+            # A negative exponent is timing noise or a regime switch (e.g. the exact GP
+            # giving way to its approximation), never a growth rate: it is shown as
+            # None, the raw value kept beside it with a note.
+            fit_seconds_exponent=raw_fit if raw_fit is None or raw_fit >= 0 else None,
+            predict_seconds_exponent=raw_pred if raw_pred is None or raw_pred >= 0 else None,
+            fit_seconds_exponent_raw=raw_fit, predict_seconds_exponent_raw=raw_pred,
+            seconds_exponent_note=(None if all(v is None or v >= 0 for v in (raw_fit, raw_pred))
+                                   else "time fell with size on this machine: no growth "
+                                        "rate can be read (noise or a change of regime)"),
             projected_seconds_per_iteration=per_iter,
             over_max_fit_seconds=bool(max_fit_seconds is not None and per_iter is not None
                             and per_iter > float(max_fit_seconds)))

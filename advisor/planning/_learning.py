@@ -63,7 +63,7 @@ def learning_curve(trials, surrogate_name: str, *, seed: int, quick: bool = Fals
         ``crps``/``nll`` are per-repeat values (None for a failed fit).
     """
     _check_trials(trials)
-    repeats = int(repeats or (3 if quick else 10))
+    repeats = int(repeats or (5 if quick else 10))  # >= 5: the t-test has >= 4 df
     n = trials.n_used
     n_test = max(1, int(round(test_share * n)))
     n_train_all = n - n_test
@@ -94,9 +94,10 @@ def learning_curve(trials, surrogate_name: str, *, seed: int, quick: bool = Fals
             "nll_sd": _nanstat(lambda v: np.nanstd(v, ddof=1), nll[:, j]),
             "crps": [_fnum(v) for v in crps[:, j]], "nll": [_fnum(v) for v in nll[:, j]],
         })
-    improving, flat_n, reading = _read_curve(sizes, crps)
+    improving, flat_n, reading, test = _read_curve(sizes, crps)
     return {"surrogate": surrogate_name, "repeats": repeats, "test_size": n_test,
             "points": points, "still_improving": improving, "flat_from_n": flat_n,
+            "trend_test": test,
             "reading": reading,
             "rule": ("still improving when the CRPS decrease over the last two segments, "
                      "paired across repeats, is significant by a one-sided t-test at 5%; "
@@ -114,26 +115,34 @@ def _nanstat(fn, v) -> float | None:
         return _fnum(fn(v))
 
 
-def _read_curve(sizes, crps) -> tuple[bool | None, int | None, str]:
+def _read_curve(sizes, crps) -> tuple[bool | None, int | None, str, dict | None]:
+    """Still improving / flat, from a one-sided paired t-test of the CRPS decrease
+    (Student 1908) over the last sizes; the test's t, degrees of freedom and p-value are
+    returned so the reading shows what it rests on."""
     if len(sizes) < 2:
-        return None, None, "too few training sizes to read a trend"
+        return None, None, "too few training sizes to read a trend", None
     start = max(0, len(sizes) - 3)
     d = crps[:, start] - crps[:, -1]
     d = d[np.isfinite(d)]
     if len(d) < 2:
-        return None, None, "too few successful repeats to read a trend"
+        return None, None, "too few successful repeats to read a trend", None
     se = float(np.std(d, ddof=1)) / math.sqrt(len(d))
     t_crit = float(stats.t.ppf(0.95, len(d) - 1))
     improving = bool(np.mean(d) > 0 and np.mean(d) > t_crit * se)
+    df = len(d) - 1
+    t = float(np.mean(d) / se) if se > 0 else (np.inf if np.mean(d) > 0 else 0.0)
+    test = {"t": _fnum(t), "df": int(df), "p_one_sided": _fnum(float(stats.t.sf(t, df))),
+            "from_n": int(sizes[start]), "to_n": int(sizes[-1])}
+    tag = f" (paired t = {t:.2f}, {df} df, one-sided p = {float(stats.t.sf(t, df)):.3f})"
     if improving:
         return True, None, (f"still improving: held-out CRPS fell by {np.mean(d):.3g} "
                             f"from {sizes[start]} to {sizes[-1]} training trials, more than "
-                            "the spread over repeats; more trials help")
+                            "the spread over repeats; more trials help" + tag), test
     means = np.nanmean(crps, axis=0)
     spread = float(np.nanstd(crps[:, -1], ddof=1))
     flat_n = next(int(m) for m, v in zip(sizes, means) if v <= means[-1] + spread)
     return False, flat_n, (f"flat beyond ~{flat_n} trials: from {sizes[start]} to "
                            f"{sizes[-1]} training trials held-out CRPS changed by "
-                           f"{-np.mean(d):.3g}, within the spread over repeats")
+                           f"{-np.mean(d):.3g}, within the spread over repeats" + tag), test
 
 

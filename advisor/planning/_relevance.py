@@ -238,8 +238,9 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
        block) and the same divided by the parameter's encoded range.
 
     A parameter is flagged ``freeze`` when the upper end of its ``ST`` interval is below
-    ``TOTAL_EFFECT_FREEZE`` (0.05) *and* the lower end of its permutation interval is
-    not above ``PERMUTATION_FREEZE`` (0.01: not significantly above 1% of the
+    ``TOTAL_EFFECT_FREEZE`` (0.05) *and* the upper end of its permutation interval is
+    below ``PERMUTATION_FREEZE`` (0.10, the same effect on the MSE scale; formerly the
+    lower end was compared with 0.01: not significantly above 1% of the
     objective's variance); its
     ``freeze_value`` is its value at the best successful trial.  When the surrogate's
     mean is flat (zero variance) nothing is flagged: there is no evidence either way.
@@ -293,8 +294,10 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
     rows = []
     for i, p in enumerate(space):
         t_hi = float(sob["total_interval"][i, 1])
+        # Positive evidence that the effect is small, for both measures: each upper
+        # bound below its margin (issue 13; formerly only "not significantly above").
         freeze = bool((not flat) and t_hi < TOTAL_EFFECT_FREEZE
-                      and not perm_lo[i] > PERMUTATION_FREEZE)
+                      and perm_hi[i] < PERMUTATION_FREEZE)
         rows.append({
             "name": p.name,
             "first_order": _fnum(sob["first_order"][i]),
@@ -317,6 +320,7 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
         "n_folds": int(n_folds),
         "thresholds": {"total_upper_below": TOTAL_EFFECT_FREEZE,
                        "permutation_lower_at_most": PERMUTATION_FREEZE,
+                       "permutation_upper_below": PERMUTATION_FREEZE,
                        "interval_level": _INTERVAL_LEVEL},
         "method": (
             f"Sobol' first-order and total indices of the {surrogate_name} surrogate's "
@@ -328,9 +332,11 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
             + ("; and the GP's fitted length scales" if any(s is not None for s in scales)
                else "")
             + f". A parameter is a candidate to freeze when the upper end of its total-"
-            f"index interval is below {TOTAL_EFFECT_FREEZE} and the lower end of its "
-            f"permutation-importance interval is at most {PERMUTATION_FREEZE} of the "
-            "variance."),
+            f"index interval is below {TOTAL_EFFECT_FREEZE} and the upper end of its "
+            f"permutation-importance interval is below {PERMUTATION_FREEZE} of the "
+            "variance (positive evidence of a small effect on both scales). The Sobol "
+            "interval covers the Monte-Carlo error of the one fitted model only, not "
+            "the model's own uncertainty."),
         "caution": RELEVANCE_CAUTION,
     }
 

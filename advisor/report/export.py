@@ -67,12 +67,22 @@ def assessment_to_dict(a) -> dict:
             entry["comparison"] = {k: row[k] for k in ("crps_diff", "crps_diff_low",
                                                        "crps_diff_high", "p_best",
                                                        "tied_with_leader")}
+            # Additive (issue 13): the model confidence set that decided the tie.
+            entry["comparison"].update(
+                in_mcs=bool(row.get("in_mcs", row["tied_with_leader"])),
+                mcs_pvalue=_num(row.get("mcs_pvalue")), mcs_level=0.05)
+            entry["metrics_fold_spread"] = {
+                k: a.metrics.get(n, {}).get(k) for m in ("spearman", "kendall",
+                                                         "top_quarter_spearman",
+                                                         "top_hit_rate")
+                for k in (f"{m}_fold_sd", f"{m}_folds")}
             entry["guards"] = {"coverage": row["guard_coverage"], "order": row["guard_order"]}
             entry["variance_scale"] = row["variance_scale"]
             rc = a.recalibration.get(n)
             if rc:
                 entry["recalibration"] = {k: rc[k] for k in
                                           ("scale", "before", "after_scale", "after_isotonic")}
+                entry["recalibration"]["fitted_on"] = rc.get("fitted_on", "other folds")
         else:
             entry["failures"] = a.failures.get(n, [])
         ranking.append(entry)
@@ -160,3 +170,12 @@ def write_scores_csv(a, dest: Path) -> Path:
     with atomic_path(dest) as tmp:
         pd.DataFrame(rows).to_csv(tmp, index=False)
     return Path(dest)
+
+
+def _num(v):
+    """A float for JSON, None for missing/NaN."""
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return None
+    return v if v == v else None
