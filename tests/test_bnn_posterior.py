@@ -1,7 +1,7 @@
 """SGHMC against an exact posterior: Bayesian linear regression (closed form).
 
 With no hidden layer the BNN is the linear model ``y = w.x + b + eps`` with prior
-``(w, b) ~ N(0, I/lambda)`` and noise ``N(0, 1/tau)``; holding both precisions fixed,
+``w ~ N(0, I/(lambda d))``, ``b ~ N(0, 1/lambda)`` (fan-in scaled) and noise ``N(0, 1/tau)``; holding both precisions fixed,
 the posterior of the weights is Gaussian with precision ``A = lambda I + tau Phi'Phi``
 and mean ``tau A^{-1} Phi' y`` (Bishop 2006, PRML Eq. 3.53-3.54).  The latent mean at
 ``x`` then has mean ``phi(x)' m_N`` and variance ``phi(x)' A^{-1} phi(x)``.
@@ -23,7 +23,9 @@ from advisor.surrogates.bnn import SGHMCBayesianNet, split_rhat
 
 def _exact(lam, tau, X, y, Xq):
     phi = np.column_stack([X, np.ones(len(X))])
-    a = lam * np.eye(phi.shape[1]) + tau * phi.T @ phi
+    # the model's prior is fan-in scaled: precision lambda * d on weights, lambda on b
+    prec = np.r_[np.full(X.shape[1], lam * X.shape[1]), lam]
+    a = np.diag(prec) + tau * phi.T @ phi
     cov = np.linalg.inv(a)
     m = tau * cov @ phi.T @ y
     pq = np.column_stack([Xq, np.ones(len(Xq))])

@@ -155,11 +155,11 @@ class SGHMCBayesianNet(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurro
     .. math::
 
         U(\\theta) = \\frac{\\tau N}{2|B|}\\sum_{i\\in B}(y_i - f(x_i))^2
-            + \\tfrac{\\lambda}{2}\\|\\theta\\|^2,
+            + \\tfrac{\\lambda}{2}\\sum_j \\text{fan}_j\\theta_j^2,
 
     and every ``resample_every`` steps the precisions are drawn from their exact
     conditionals (Gibbs; conjugate Gamma updates):
-    ``lambda ~ Gamma(a_w + P/2, b_w + ||theta||^2/2)`` and
+    ``lambda ~ Gamma(a_w + P/2, b_w + sum_j fan_j theta_j^2/2)`` and
     ``tau ~ Gamma(a_n + N/2, b_n + sum_i (y_i - f(x_i))^2/2)``, with the residuals
     over all ``N`` training rows.  After ``burn_in`` steps with scale adaptation,
     every ``keep_every``-th state (weights and ``tau``) is retained.  The predictive
@@ -211,6 +211,7 @@ class SGHMCBayesianNet(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurro
        Bayesian optimization with robust Bayesian neural networks. NeurIPS.
     .. [CFG2014] Chen, T., Fox, E. B. & Guestrin, C. (2014). Stochastic gradient
        Hamiltonian Monte Carlo. ICML.
+    .. [N1996] Neal, R. M. (1996). Bayesian Learning for Neural Networks. Springer.
     .. [BDA3] Gelman, A., Carlin, J. B., Stern, H. S., Dunson, D. B., Vehtari, A. &
        Rubin, D. B. (2013). Bayesian Data Analysis, 3rd ed., Sec. 11.4.
     """
@@ -243,6 +244,12 @@ class SGHMCBayesianNet(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurro
         lam = float(self.weight_precision or _WEIGHT_HYPER[0] / _WEIGHT_HYPER[1])
         tau = float(self.noise_precision or _NOISE_HYPER[0] / _NOISE_HYPER[1])
         n_par = net.flat.numel()
+        # Fan-in scaled prior (Neal 1996, Sec. 2.2): theta_j ~ N(0, 1/(lambda fan_in_j)),
+        # so lambda ~ 1 keeps every unit's input of order one whatever the width — our
+        # choice, against the unit saturation a unit-variance prior on 50-wide layers
+        # gives (and lambda then moves far less between Gibbs steps).
+        self._fan = torch.cat([torch.full((b - a,), float(shape[0] if i % 2 == 0 else 1))
+                               for i, (a, b, shape) in enumerate(net._slices)])
         total = preset["burn_in"] + preset["keep"] * preset["keep_every"]
         draws, taus, lams, step = [], [], [], 0
         while step < total:
@@ -281,7 +288,7 @@ class SGHMCBayesianNet(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurro
     def _gibbs(self, net, X, y, lam, tau, n_par, rng):
         """Conjugate Gamma draws of the weight and noise precisions (numpy rate form)."""
         with torch.no_grad():
-            w2 = float((net.flat ** 2).sum())
+            w2 = float((self._fan * net.flat ** 2).sum())
             ssr = float(((net(X)[0][:, 0] - y) ** 2).sum())
         if self.weight_precision is None:
             a, b = _WEIGHT_HYPER
@@ -294,7 +301,7 @@ class SGHMCBayesianNet(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurro
     def _potential(self, net, xb, yb, n, lam, tau):
         mu = net(xb)[0][:, 0]
         nll = 0.5 * tau * ((yb - mu) ** 2).sum() * (n / len(yb))
-        return nll + 0.5 * lam * (net.flat ** 2).sum()
+        return nll + 0.5 * lam * (self._fan * net.flat ** 2).sum()
 
     def sample_moments_s(self, Xs):
         """Mean and noise variance of each retained draw (standardized), (K, n)."""
