@@ -131,3 +131,29 @@ def test_baseline_constant_targets_keep_positive_std():
     model = MeanBaseline().fit(np.zeros((3, 1)), np.full(3, 2.0))
     _, std = model.predict(np.zeros((2, 1)))
     assert np.all(std > 0)
+
+
+# -- Thompson draws ------------------------------------------------------------------
+def test_forest_thompson_draw_is_one_whole_tree():
+    X, y = _data(40, seed=8)
+    model = RandomForestSurrogate(seed=0, n_estimators=7).fit(X, y)
+    Xq = X[:9] + 0.01
+    draws = model.sample_y(Xq, 7, np.random.default_rng(1))
+    # reference: scikit-learn's own per-tree predictions; each draw is exactly one tree,
+    # and with as many draws as trees each tree is used once
+    trees = np.array([t.predict(Xq) for t in model.forest_.estimators_])
+    match = [int(np.flatnonzero(np.all(np.isclose(trees, d, rtol=1e-12), axis=1))[0])
+             for d in draws]
+    assert sorted(match) == list(range(7))
+    # the draws average to scikit-learn's forest prediction (mean of the trees)
+    np.testing.assert_allclose(draws.mean(0), model.forest_.predict(Xq), rtol=1e-10)
+    assert model.sample_y(Xq, 15, 2).shape == (15, 9)
+    assert model.info_["thompson_draws"].startswith("joint")
+
+
+def test_forest_thompson_is_labelled_joint_by_the_acquisition():
+    from advisor.acquisition import thompson_draw
+    X, y = _data(30, seed=9)
+    model = RandomForestSurrogate(seed=0, n_estimators=5).fit(X, y)
+    _, kind = thompson_draw(model, X[:6], np.random.default_rng(0))
+    assert kind == "joint"

@@ -98,6 +98,8 @@ class RandomForestSurrogate:
     """
 
     input_encoding = "ordinal"
+    #: How ``sample_y`` draws a function (reported with Thompson results).
+    thompson_draws = "joint: one tree (a bootstrap refit) per draw"
 
     def __init__(self, seed=0, quick=False, *, n_estimators=None, min_samples_leaf=3,
                  max_features=1.0, var_floor=1e-6):
@@ -122,7 +124,8 @@ class RandomForestSurrogate:
         self.leaf_var_ = [t.tree_.impurity.copy() for t in self.forest_.estimators_]
         self._floor = self.var_floor * max(float(y.var()), 1e-300)
         self.info_ = {"n_trees": n_trees, "min_samples_leaf": self.min_samples_leaf,
-                      "variance": "law of total variance over trees"}
+                      "variance": "law of total variance over trees",
+                      "thompson_draws": self.thompson_draws}
         return self
 
     def leaf_moments(self, X):
@@ -134,6 +137,23 @@ class RandomForestSurrogate:
         means = np.array([m[leaves[:, t]] for t, m in enumerate(self.leaf_mean_)])
         vars_ = np.array([v[leaves[:, t]] for t, v in enumerate(self.leaf_var_)])
         return means, vars_
+
+    def sample_y(self, X, n_samples: int, rng=None):
+        """Joint draws of the latent function at ``X``: one tree per draw.
+
+        Each draw is the leaf-mean function of one tree of the forest, picked uniformly
+        at random (cycling through a random permutation of the trees when more draws
+        than trees are asked).  A tree is a fit to a bootstrap resample of the data, so
+        a draw is a whole function, evaluated jointly at every point of ``X`` — the
+        bootstrap reading of Thompson sampling ("bootstrap Thompson", a refit on a
+        resample; Eckles & Kaptein 2014, from memory) — not independent noise per
+        point.  Shape ``(n_samples, len(X))``.
+        """
+        rng = np.random.default_rng(rng)
+        means, _ = self.leaf_moments(X)
+        t = means.shape[0]
+        order = np.concatenate([rng.permutation(t) for _ in range(-(-int(n_samples) // t))])
+        return means[order[:int(n_samples)]]
 
     def predict(self, X):
         mean, var = total_variance_moments(*self.leaf_moments(X))
