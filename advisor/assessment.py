@@ -172,6 +172,10 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     """
     t_start = time.perf_counter()
     names = list(surrogates) if surrogates else surrogate_names()
+    if not surrogates and not (trials.campaign and trials.n_campaigns >= 2):
+        # a campaign random effect needs two campaigns to be identified; by default the
+        # campaign GP is a candidate only then (it can still be asked for by name)
+        names = [n for n in names if n != "campaign_gp"]
     if len(set(names)) != len(names):
         raise UsageError("a surrogate is named twice", fix="name each surrogate once")
     for n in names:

@@ -1,0 +1,52 @@
+"""Checks of the GP variants against known generating values."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from advisor.surrogates.gp_campaign import CampaignGP
+from advisor.surrogates.gp import MaternGP
+
+
+def _offset_log(seed, n_camp=8, per=25, sc=1.0, noise=0.1):
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(0, 1, (n_camp * per, 2))
+    g = np.repeat(np.arange(n_camp), per)
+    offs = rng.normal(0, sc, n_camp)
+    y = np.sin(3 * X[:, 0]) + X[:, 1] ** 2 + offs[g] + rng.normal(0, noise, len(g))
+    return X, y, g, offs
+
+
+@pytest.mark.slow
+def test_campaign_gp_recovers_between_campaign_sd_and_noise():
+    # true s_c = 1.0 with 8 campaigns: the ML estimate of an sd from 8 draws has relative
+    # standard error about 1/sqrt(2*8) = 0.25 (normal theory), so a factor-2 band is ~2.7 se
+    X, y, g, offs = _offset_log(0)
+    m = CampaignGP(seed=0).fit(X, y, groups=g)
+    assert 0.5 < m.between_campaign_sd_ < 2.0
+    # noise sd 0.1 from 200 rows: relative se ~ 1/sqrt(400) = 5%; allow 30%
+    assert abs(m.noise_std_ - 0.1) < 0.03
+    plain = MaternGP(seed=0).fit(X, y)
+    assert plain.noise_std_ > 2 * m.noise_std_   # the offsets inflate the plain GP's noise
+
+
+def test_campaign_gp_new_campaign_variance_and_forward_learning():
+    X, y, g, offs = _offset_log(1, n_camp=5, per=20)
+    m = CampaignGP(seed=0, quick=True).fit(X, y, groups=g)
+    mu_new, sd_new = m.predict(X[:5], groups=np.full(5, 99))
+    mu_seen, sd_seen = m.predict(X[:5], groups=g[:5])
+    # an unseen campaign's offset variance enters its prediction
+    assert np.all(sd_new ** 2 > sd_seen ** 2 + 0.5 * m.between_campaign_sd_ ** 2)
+    # a seen campaign's offset is learned: predictions track y of that campaign
+    assert np.mean(np.abs(mu_seen - y[:5])) < np.mean(np.abs(mu_new - y[:5]))
+
+
+@pytest.mark.slow
+def test_campaign_gp_noise_near_data_sheet_on_moulding_log():
+    # sample_logs/moulding_warpage.md: noise sd 0.012 mm; the plain GP fits ~0.030 mm
+    df = pd.read_csv("sample_logs/moulding_warpage.csv")
+    X = df.iloc[:, 2:-1].to_numpy(float)
+    y = df["warpage_mm"].to_numpy(float)
+    m = CampaignGP(seed=0).fit(X, y, groups=df["lot"].to_numpy())
+    assert 0.012 / 1.5 < m.noise_std_ < 0.012 * 1.5
+    assert m.info_["between_campaign_sd"] > 0.02   # lot shift sd 0.04 mm plus moving optimum
