@@ -110,6 +110,12 @@ def _fit_predict_task(name: str, fold: int, X, y, groups, train, test, seed: int
                 else model.predict(X[test]))
         t2 = time.perf_counter()
         mean, std = check_predictions(pred[0], pred[1], len(test))
+        if hasattr(model, "predict_dist") and not grouped:
+            # a non-Gaussian predictive distribution: per-point scores at variance scale 1
+            dist = model.predict_dist(X[test])
+            out.update(nll_pt=np.asarray(dist.nll(y[test]), dtype=float),
+                       crps_pt=np.asarray(dist.crps(y[test]), dtype=float),
+                       pit=np.asarray(dist.cdf(y[test]), dtype=float))
         noise = getattr(model, "noise_std_", None)
         out.update(mean=mean, std=std, fit_seconds=t1 - t0, predict_seconds=t2 - t1,
                    noise_std=None if noise is None else float(noise),
@@ -203,8 +209,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     preds, failures, fit_s, pred_s = cv["preds"], cv["failures"], cv["fit_s"], cv["pred_s"]
     noise, info, tested, fold_of = cv["noise"], cv["info"], cv["tested"], cv["fold_of"]
     pred_rows, fold_rows = cv["pred_rows"], cv["fold_rows"]
-    by_scheme = {scheme.name: {n: score_predictions(p["y"], p["mean"], p["std"])
-                               for n, p in preds.items()}}
+    by_scheme = {scheme.name: {n: _score_pooled(p) for n, p in preds.items()}}
     secondary = []
     if not quick:
         # Thorough mode also scores the working models under the other schemes that
@@ -218,8 +223,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
             f2 = list(sc.splitter.split(X_enc[next(iter(X_enc))], y, groups))
             cv2 = _cross_validate(executor, working, encodings, X_enc, y, groups, f2,
                                   seed, quick, tag=other)
-            by_scheme[other] = {n: score_predictions(p["y"], p["mean"], p["std"])
-                                for n, p in cv2["preds"].items()}
+            by_scheme[other] = {n: _score_pooled(p) for n, p in cv2["preds"].items()}
             secondary.append({"scheme": other, "description": sc.splitter.describe(),
                               "n_folds": len(f2), "failed": sorted(cv2["failures"])})
 
@@ -227,7 +231,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     boot_idx = stratified_bootstrap_index(fold_of[tested], 200 if quick else 500, rng)
     metrics, intervals, recal = {}, {}, {}
     for n, p in preds.items():
-        metrics[n] = score_predictions(p["y"], p["mean"], p["std"])
+        metrics[n] = _score_pooled(p)
         intervals[n] = bootstrap_intervals(p["y"], p["mean"], p["std"], boot_idx)
         recal[n] = cross_fitted_recalibration(p["y"], p["mean"], p["std"], p["fold"])
     for n in names:
@@ -494,9 +498,30 @@ def _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, q
                                   **score_predictions(y[r["test"]], r["mean"], r["std"])})
         preds[n] = {"y": y[tested], "mean": mean[tested], "std": std[tested],
                     "fold": fold_of[tested]}
+        if all("nll_pt" in r for r in res):
+            for key in ("nll_pt", "crps_pt", "pit"):
+                arr = np.full(len(y), np.nan)
+                for r in res:
+                    arr[r["test"]] = r[key]
+                preds[n][key] = arr[tested]
     return {"preds": preds, "failures": failures, "fit_s": fit_s, "pred_s": pred_s,
             "noise": noise, "info": info, "tested": tested, "fold_of": fold_of,
             "pred_rows": pred_rows, "fold_rows": fold_rows}
+
+
+def _score_pooled(p: dict) -> dict:
+    """Scores of pooled predictions; for a non-Gaussian model (``nll_pt`` present) the
+    NLL (Jacobian included), CRPS (by quadrature) and central-interval coverage (from
+    the PIT: ``|F(y) - 1/2| <= level/2``) come from its own distribution, the rest from
+    its mean and sd."""
+    out = score_predictions(p["y"], p["mean"], p["std"])
+    if "nll_pt" in p:
+        out["nll"] = float(np.mean(p["nll_pt"]))
+        out["crps"] = float(np.mean(p["crps_pt"]))
+        for key in [k for k in out if k.startswith("coverage_")]:
+            level = int(key.split("_")[1]) / 100.0
+            out[key] = float(np.mean(np.abs(p["pit"] - 0.5) <= level / 2))
+    return out
 
 
 def _nanmean(values) -> float:
