@@ -82,3 +82,26 @@ def test_warped_gp_no_worse_than_margin_on_gaussian_objective():
     nll_p = _nll_plain(MaternGP(seed=0, quick=True).fit(X[tr], y[tr]), X[te], y[te])
     # margin 0.1 nats per point (stated): the fitted lambda stays near 1 when y is normal
     assert nll_w < nll_p + 0.1
+
+
+@pytest.mark.slow
+def test_assessment_scores_warped_gp_from_its_distribution_and_exports_campaign_sd():
+    from pathlib import Path
+    import advisor
+    from advisor.report.export import assessment_to_dict
+    root = Path(__file__).resolve().parent.parent
+    trials = advisor.load_trials(root / "sample_logs" / "moulding_warpage.csv",
+                                 objective="warpage_mm", campaign="lot", order="run")
+    names = ["warped_gp", "campaign_gp", "baseline"]
+    a = advisor.assess(trials, seed=0, quick=True, surrogates=names, backtest=False,
+                       plan=False, jobs=1)
+    m = a.metrics
+    # every new GP variant beats the knowing-nothing baseline on held-out NLL
+    assert m["warped_gp"]["nll"] < m["baseline"]["nll"]
+    assert m["campaign_gp"]["nll"] < m["baseline"]["nll"]
+    # the override: warped_gp's NLL is its own distribution's (not the Gaussian of its moments)
+    assert a.model_info["warped_gp"]["transform"] in ("log", "yeo-johnson")
+    d = assessment_to_dict(a)
+    assert d["input"]["between_campaign_sd"] > 0
+    assert {r["surrogate"] for r in d["ranking"]} == set(names)
+
