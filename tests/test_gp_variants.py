@@ -105,3 +105,20 @@ def test_assessment_scores_warped_gp_from_its_distribution_and_exports_campaign_
     assert d["input"]["between_campaign_sd"] > 0
     assert {r["surrogate"] for r in d["ranking"]} == set(names)
 
+
+
+@pytest.mark.slow
+def test_campaign_gp_left_out_of_defaults_without_two_campaigns(monkeypatch):
+    from pathlib import Path
+    import advisor
+    import advisor.assessment as A
+    root = Path(__file__).resolve().parent.parent
+    trials = advisor.load_trials(root / "sample_logs" / "moulding_warpage.csv",
+                                 objective="warpage_mm", order="run")   # no campaign column
+    monkeypatch.setattr(A, "surrogate_names", lambda: ["campaign_gp", "baseline"])
+    a = advisor.assess(trials, seed=0, quick=True, backtest=False, plan=False, jobs=1)
+    assert set(a.metrics) == {"baseline"}
+    # named explicitly it still runs (as one GP offset shared by all rows)
+    a = advisor.assess(trials, seed=0, quick=True, surrogates=["campaign_gp"], backtest=False,
+                       plan=False, jobs=1)
+    assert "campaign_gp" in a.metrics and "campaign_gp" not in a.failures
