@@ -111,6 +111,12 @@ def _fit_predict_task(name: str, fold: int, X, y, groups, train, test, seed: int
                 else model.predict(X[test]))
         t2 = time.perf_counter()
         mean, std = check_predictions(pred[0], pred[1], len(test))
+        if hasattr(model, "predict_dist") and not grouped:
+            # a non-Gaussian predictive distribution: per-point scores at variance scale 1
+            dist = model.predict_dist(X[test])
+            out.update(nll_pt=np.asarray(dist.nll(y[test]), dtype=float),
+                       crps_pt=np.asarray(dist.crps(y[test]), dtype=float),
+                       pit=np.asarray(dist.cdf(y[test]), dtype=float))
         noise = getattr(model, "noise_std_", None)
         out.update(mean=mean, std=std, fit_seconds=t1 - t0, predict_seconds=t2 - t1,
                    noise_std=None if noise is None else float(noise),
@@ -187,6 +193,10 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     """
     t_start = time.perf_counter()
     names = list(surrogates) if surrogates else surrogate_names()
+    if not surrogates and not (trials.campaign and trials.n_campaigns >= 2):
+        # a campaign random effect needs two campaigns to be identified; by default the
+        # campaign GP is a candidate only then (it can still be asked for by name)
+        names = [n for n in names if n != "campaign_gp"]
     if len(set(names)) != len(names):
         raise UsageError("a surrogate is named twice", fix="name each surrogate once")
     for n in names:
@@ -220,8 +230,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     preds, failures, fit_s, pred_s = cv["preds"], cv["failures"], cv["fit_s"], cv["pred_s"]
     noise, info, tested, fold_of = cv["noise"], cv["info"], cv["tested"], cv["fold_of"]
     pred_rows, fold_rows = cv["pred_rows"], cv["fold_rows"]
-    by_scheme = {scheme.name: {n: score_predictions(p["y"], p["mean"], p["std"])
-                               for n, p in preds.items()}}
+    by_scheme = {scheme.name: {n: _score_pooled(p) for n, p in preds.items()}}
     secondary = []
     if not quick:
         # Thorough mode also scores the working models under the other schemes that
@@ -235,8 +244,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
             f2 = list(sc.splitter.split(X_enc[next(iter(X_enc))], y, groups))
             cv2 = _cross_validate(executor, working, encodings, X_enc, y, groups, f2,
                                   seed, quick, tag=other, time_limit=model_time_limit)
-            by_scheme[other] = {n: score_predictions(p["y"], p["mean"], p["std"])
-                                for n, p in cv2["preds"].items()}
+            by_scheme[other] = {n: _score_pooled(p) for n, p in cv2["preds"].items()}
             secondary.append({"scheme": other, "description": sc.splitter.describe(),
                               "n_folds": len(f2), "failed": sorted(cv2["failures"])})
 
@@ -245,7 +253,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     metrics, intervals, recal = {}, {}, {}
     for n, p in preds.items():
         # Rank metrics within folds, averaged, with their spread (scoring docstring).
-        metrics[n] = score_predictions(p["y"], p["mean"], p["std"], folds=p["fold"])
+        metrics[n] = _score_pooled(p, folds=p["fold"])
         intervals[n] = bootstrap_intervals(p["y"], p["mean"], p["std"], boot_idx)
         recal[n] = cross_fitted_recalibration(p["y"], p["mean"], p["std"], p["fold"],
                                               forward=scheme.name == "forward")
@@ -584,6 +592,12 @@ def _cross_validate(executor, names, encodings, X_enc, y, groups, folds, seed, q
                                   **score_predictions(y[r["test"]], r["mean"], r["std"])})
         preds[n] = {"y": y[tested], "mean": mean[tested], "std": std[tested],
                     "fold": fold_of[tested]}
+        if all("nll_pt" in r for r in res):
+            for key in ("nll_pt", "crps_pt", "pit"):
+                arr = np.full(len(y), np.nan)
+                for r in res:
+                    arr[r["test"]] = r[key]
+                preds[n][key] = arr[tested]
     return {"preds": preds, "failures": failures, "fit_s": fit_s, "pred_s": pred_s,
             "noise": noise, "info": info, "tested": tested, "fold_of": fold_of,
             "pred_rows": pred_rows, "fold_rows": fold_rows}
@@ -606,6 +620,21 @@ def _ranking_blocks(trials, tested, folds) -> np.ndarray:
     for f in np.unique(folds):
         rows = np.flatnonzero(folds == f)
         out[rows] = f * 4 + (np.arange(len(rows)) * 4) // max(len(rows), 1)
+    return out
+
+
+def _score_pooled(p: dict, folds=None) -> dict:
+    """Scores of pooled predictions; for a non-Gaussian model (``nll_pt`` present) the
+    NLL (Jacobian included), CRPS (by quadrature) and central-interval coverage (from
+    the PIT: ``|F(y) - 1/2| <= level/2``) come from its own distribution, the rest from
+    its mean and sd."""
+    out = score_predictions(p["y"], p["mean"], p["std"], folds=folds)
+    if "nll_pt" in p:
+        out["nll"] = float(np.mean(p["nll_pt"]))
+        out["crps"] = float(np.mean(p["crps_pt"]))
+        for key in [k for k in out if k.startswith("coverage_")]:
+            level = int(key.split("_")[1]) / 100.0
+            out[key] = float(np.mean(np.abs(p["pit"] - 0.5) <= level / 2))
     return out
 
 

@@ -95,6 +95,10 @@ def assessment_to_dict(a) -> dict:
             "rows_used": t.n_used, "rows_failed": len(t.failures),
             "parameters": t.params, "objective": t.objective, "direction": t.direction,
             "campaign": t.campaign, "order": t.order, "status": t.status,
+            # fitted sd of the per-campaign offset (campaign_gp, largest training fold);
+            # None when that model did not run
+            "between_campaign_sd": a.model_info.get("campaign_gp", {}).get(
+                "between_campaign_sd"),
         },
         "space": t.space.to_dict(),
         "notes": list(t.notes) + list(getattr(t.space, "notes", ())),

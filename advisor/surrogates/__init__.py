@@ -23,6 +23,10 @@ __all__ = ["surrogate_names", "make_surrogate", "describe_surrogate", "Surrogate
 BUILTIN: dict[str, tuple[str, str]] = {
     "gp": ("advisor.surrogates.gp:MaternGP",
            "Gaussian process, Matérn-5/2 ARD kernel, type-II ML (Rasmussen & Williams 2006)"),
+    "campaign_gp": ("advisor.surrogates.gp_campaign:CampaignGP",
+                    "GP plus a per-campaign random offset (Laird & Ware 1982; RW2006 Sec. 2.7)"),
+    "warped_gp": ("advisor.surrogates.warping:WarpedGP",
+                  "GP on a log / Yeo-Johnson warp of the objective (Snelson et al. 2004)"),
     "forest": ("advisor.surrogates.forest:RandomForestSurrogate",
                "random forest, variance by the law of total variance (Hutter et al. 2014)"),
     "dngo": ("advisor.surrogates.dngo:DNGO",

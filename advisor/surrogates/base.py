@@ -15,6 +15,10 @@ Optional members a model may offer, which the tool uses when present:
   function at ``X`` (for Thompson sampling); without it, draws are independent per point;
 * ``uses_groups = True`` with ``fit(X, y, groups=None)`` / ``predict(X, groups=None)``:
   the model is told which campaign each row belongs to;
+* ``predict_dist(X)``: a predictive distribution beyond the Gaussian (e.g.
+  :class:`advisor.distributions.WarpedNormal`) with ``nll(y)`` (Jacobian included),
+  ``crps(y)``, ``cdf(y)``, ``ppf(u)``; when present, held-out NLL, CRPS and coverage are
+  scored from it, while ``predict`` still returns its mean and sd;
 * ``info_``: a dict of plain facts for the report (e.g. an approximation used).
 
 :class:`ScaledSurrogate` standardizes inputs and outputs once, so subclasses work on

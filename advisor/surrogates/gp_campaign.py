@@ -1,0 +1,142 @@
+"""A GP with a per-campaign random offset: ``k(x, x') + s_c^2 [c = c']``.
+
+Lot-to-lot (campaign-to-campaign) shifts that a plain GP cannot explain by the inputs
+end up in its noise variance.  Adding a random effect -- an offset per campaign drawn
+from ``N(0, s_c^2)`` -- to the kernel [RW2006, Sec. 2.7 and Eq. 2.41 for sums of
+kernels; the random-intercept model of Laird & Ware 1982] gives the shift its own
+variance.  For a campaign absent from training the offset is unknown and ``s_c^2``
+enters the predictive variance; once a campaign has training rows, the GP posterior
+learns its offset from them (no special code: the indicator kernel does it).
+
+References
+----------
+[RW2006] Rasmussen, C. E. & Williams, C. K. I. (2006). Gaussian Processes for Machine
+    Learning. MIT Press.
+Laird, N. M. & Ware, J. H. (1982). Random-effects models for longitudinal data.
+    Biometrics 38, 963-974.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import linalg, optimize
+
+from .base import check_fit_inputs
+from .gp import _LOG_2PI, _cholesky_with_jitter, matern52
+
+__all__ = ["CampaignGP"]
+
+
+def _same(ga, gb):
+    return (np.asarray(ga)[:, None] == np.asarray(gb)[None, :]).astype(float)
+
+
+def _nlml(log_params, X, y, S, jitter):
+    """Negative log marginal likelihood [RW2006, Eq. 2.30] of the campaign kernel.
+
+    ``log_params = log(l_1..l_d, sigma_f^2, sigma_n^2, s_c^2)``.  The gradient is left
+    to finite differences in L-BFGS: d + 3 parameters and the small logs this model
+    is meant for keep that cheap, and it avoids a second hand-written gradient.
+    """
+    d = X.shape[1]
+    p = np.exp(log_params)
+    ls, sf2, sn2, sc2 = p[:d], p[d], p[d + 1], p[d + 2]
+    K = matern52(X, X, ls, sf2) + sc2 * S
+    K.flat[:: len(y) + 1] += sn2 + jitter
+    try:
+        L = linalg.cholesky(K, lower=True, check_finite=False)
+    except linalg.LinAlgError:
+        return 1e10
+    a = linalg.cho_solve((L, True), y, check_finite=False)
+    return float(0.5 * y @ a + np.log(np.diag(L)).sum() + 0.5 * len(y) * _LOG_2PI)
+
+
+class CampaignGP:
+    """Matérn-5/2 ARD GP plus a campaign random effect, type-II ML hyperparameters.
+
+    Parameters
+    ----------
+    seed : int
+        Seeds the restart points.
+    quick : bool
+        Fewer restarts.
+    restarts : int or None
+        Number of random restarts besides the default start (None: 1 quick, 3 full).
+    jitter : float
+        Added to the diagonal.
+
+    Attributes
+    ----------
+    between_campaign_sd_ : float
+        Fitted ``s_c`` in ``y``'s units.
+    noise_std_ : float
+        Fitted observation-noise sd in ``y``'s units.
+    info_ : dict
+        Plain facts for the report, including ``between_campaign_sd``.
+    """
+
+    uses_groups = True
+
+    def __init__(self, seed=0, quick=False, *, restarts=None, jitter=1e-8):
+        self.seed = seed
+        self.quick = quick
+        self.restarts = restarts
+        self.jitter = jitter
+
+    def fit(self, X, y, groups=None):
+        X, y = check_fit_inputs(X, y)
+        n, d = X.shape
+        g = np.zeros(n, dtype=object) if groups is None else np.asarray(groups, dtype=object)
+        self.x_mean_ = X.mean(0)
+        sx = X.std(0)
+        self.x_scale_ = np.where(sx > 0, sx, 1.0)
+        self.y_mean_ = float(y.mean())
+        self.y_scale_ = float(y.std()) or 1.0
+        Xs = (X - self.x_mean_) / self.x_scale_
+        ys = (y - self.y_mean_) / self.y_scale_
+        S = _same(g, g)
+        rng = np.random.default_rng(self.seed)
+        n_restarts = (1 if self.quick else 3) if self.restarts is None else int(self.restarts)
+        bounds = [(math.log(1e-2), math.log(1e2))] * d + [
+            (math.log(1e-2), math.log(1e2)), (math.log(1e-6), math.log(2.0)),
+            (math.log(1e-6), math.log(2.0))]
+        starts = [np.r_[np.zeros(d), 0.0, math.log(0.1), math.log(0.1)]]
+        for _ in range(n_restarts):
+            starts.append(np.array([rng.uniform(lo, hi) for lo, hi in bounds]))
+        best = None
+        for x0 in starts:
+            res = optimize.minimize(_nlml, x0, args=(Xs, ys, S, self.jitter),
+                                    method="L-BFGS-B", bounds=bounds,
+                                    options={"maxiter": 100 if self.quick else 200})
+            if best is None or res.fun < best.fun:
+                best = res
+        p = np.exp(best.x)
+        self._ls, self._sf2, self._sn2, self._sc2 = p[:d], p[d], p[d + 1], p[d + 2]
+        K = matern52(Xs, Xs, self._ls, self._sf2) + self._sc2 * S
+        K.flat[:: n + 1] += self._sn2
+        self.L_, self.jitter_ = _cholesky_with_jitter(K, self.jitter, self._sf2 + self._sn2,
+                                                      "the campaign-GP training covariance")
+        self.alpha_ = linalg.cho_solve((self.L_, True), ys, check_finite=False)
+        self.X_train_, self.groups_ = Xs, g
+        self.noise_std_ = float(math.sqrt(self._sn2) * self.y_scale_)
+        self.between_campaign_sd_ = float(math.sqrt(self._sc2) * self.y_scale_)
+        self.info_ = {"approximation": "exact", "n_train": n,
+                      "n_campaigns": int(len(set(g.tolist()))),
+                      "between_campaign_sd": self.between_campaign_sd_,
+                      "noise_sd": self.noise_std_}
+        return self
+
+    def predict(self, X, groups=None):
+        """Predictive mean and sd of a new observation; a campaign not seen in training
+        (or ``groups=None``) gets an unknown offset whose variance ``s_c^2`` is added."""
+        X = np.asarray(X, dtype=float)
+        Xs = (X - self.x_mean_) / self.x_scale_
+        g = (np.full(len(X), object(), dtype=object) if groups is None
+             else np.asarray(groups, dtype=object))
+        Ks = matern52(self.X_train_, Xs, self._ls, self._sf2) + self._sc2 * _same(self.groups_, g)
+        mean = Ks.T @ self.alpha_
+        v = linalg.solve_triangular(self.L_, Ks, lower=True, check_finite=False)
+        var = np.maximum(self._sf2 + self._sc2 - (v * v).sum(0), 1e-12) + self._sn2
+        return self.y_mean_ + self.y_scale_ * mean, self.y_scale_ * np.sqrt(var)

@@ -1,0 +1,124 @@
+"""Checks of the GP variants against known generating values."""
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from advisor.surrogates.gp_campaign import CampaignGP
+from advisor.surrogates.gp import MaternGP
+
+
+def _offset_log(seed, n_camp=8, per=25, sc=1.0, noise=0.1):
+    rng = np.random.default_rng(seed)
+    X = rng.uniform(0, 1, (n_camp * per, 2))
+    g = np.repeat(np.arange(n_camp), per)
+    offs = rng.normal(0, sc, n_camp)
+    y = np.sin(3 * X[:, 0]) + X[:, 1] ** 2 + offs[g] + rng.normal(0, noise, len(g))
+    return X, y, g, offs
+
+
+@pytest.mark.slow
+def test_campaign_gp_recovers_between_campaign_sd_and_noise():
+    # true s_c = 1.0 with 8 campaigns: the ML estimate of an sd from 8 draws has relative
+    # standard error about 1/sqrt(2*8) = 0.25 (normal theory), so a factor-2 band is ~2.7 se
+    X, y, g, offs = _offset_log(0)
+    m = CampaignGP(seed=0).fit(X, y, groups=g)
+    assert 0.5 < m.between_campaign_sd_ < 2.0
+    # noise sd 0.1 from 200 rows: relative se ~ 1/sqrt(400) = 5%; allow 30%
+    assert abs(m.noise_std_ - 0.1) < 0.03
+    plain = MaternGP(seed=0).fit(X, y)
+    assert plain.noise_std_ > 2 * m.noise_std_   # the offsets inflate the plain GP's noise
+
+
+def test_campaign_gp_new_campaign_variance_and_forward_learning():
+    X, y, g, offs = _offset_log(1, n_camp=5, per=20)
+    m = CampaignGP(seed=0, quick=True).fit(X, y, groups=g)
+    mu_new, sd_new = m.predict(X[:5], groups=np.full(5, 99))
+    mu_seen, sd_seen = m.predict(X[:5], groups=g[:5])
+    # an unseen campaign's offset variance enters its prediction
+    assert np.all(sd_new ** 2 > sd_seen ** 2 + 0.5 * m.between_campaign_sd_ ** 2)
+    # a seen campaign's offset is learned: predictions track y of that campaign
+    assert np.mean(np.abs(mu_seen - y[:5])) < np.mean(np.abs(mu_new - y[:5]))
+
+
+@pytest.mark.slow
+def test_campaign_gp_noise_near_data_sheet_on_moulding_log():
+    # sample_logs/moulding_warpage.md: noise sd 0.012 mm; the plain GP fits ~0.030 mm
+    df = pd.read_csv("sample_logs/moulding_warpage.csv")
+    X = df.iloc[:, 2:-1].to_numpy(float)
+    y = df["warpage_mm"].to_numpy(float)
+    m = CampaignGP(seed=0).fit(X, y, groups=df["lot"].to_numpy())
+    assert 0.012 / 1.5 < m.noise_std_ < 0.012 * 1.5
+    assert m.info_["between_campaign_sd"] > 0.02   # lot shift sd 0.04 mm plus moving optimum
+
+
+def _nll_plain(model, X, y):
+    from scipy import stats
+    mu, sd = model.predict(X)
+    return float(np.mean(-stats.norm.logpdf(y, mu, sd)))
+
+
+def test_warped_gp_beats_plain_gp_on_lognormal_objective():
+    from advisor.surrogates.warping import WarpedGP
+    rng = np.random.default_rng(3)
+    X = rng.uniform(0, 1, (120, 2))
+    y = np.exp(np.sin(3 * X[:, 0]) + X[:, 1] + rng.normal(0, 0.6, 120))   # log-normal noise
+    tr, te = slice(0, 80), slice(80, None)
+    w = WarpedGP(seed=0, quick=True).fit(X[tr], y[tr])
+    assert w.info_["transform"] == "log"
+    nll_w = float(np.mean(w.predict_dist(X[te]).nll(y[te])))        # Jacobian included
+    nll_p = _nll_plain(MaternGP(seed=0, quick=True).fit(X[tr], y[tr]), X[te], y[te])
+    assert nll_w < nll_p
+
+
+def test_warped_gp_no_worse_than_margin_on_gaussian_objective():
+    from advisor.surrogates.warping import WarpedGP
+    rng = np.random.default_rng(4)
+    X = rng.uniform(0, 1, (120, 2))
+    y = np.sin(3 * X[:, 0]) + X[:, 1] + rng.normal(0, 0.2, 120)
+    tr, te = slice(0, 80), slice(80, None)
+    w = WarpedGP(seed=0, quick=True).fit(X[tr], y[tr])
+    nll_w = float(np.mean(w.predict_dist(X[te]).nll(y[te])))
+    nll_p = _nll_plain(MaternGP(seed=0, quick=True).fit(X[tr], y[tr]), X[te], y[te])
+    # margin 0.1 nats per point (stated): the fitted lambda stays near 1 when y is normal
+    assert nll_w < nll_p + 0.1
+
+
+@pytest.mark.slow
+def test_assessment_scores_warped_gp_from_its_distribution_and_exports_campaign_sd():
+    from pathlib import Path
+    import advisor
+    from advisor.report.export import assessment_to_dict
+    root = Path(__file__).resolve().parent.parent
+    trials = advisor.load_trials(root / "sample_logs" / "moulding_warpage.csv",
+                                 objective="warpage_mm", campaign="lot", order="run")
+    names = ["warped_gp", "campaign_gp", "baseline"]
+    a = advisor.assess(trials, seed=0, quick=True, surrogates=names, backtest=False,
+                       plan=False, jobs=1)
+    m = a.metrics
+    # every new GP variant beats the knowing-nothing baseline on held-out NLL
+    assert m["warped_gp"]["nll"] < m["baseline"]["nll"]
+    assert m["campaign_gp"]["nll"] < m["baseline"]["nll"]
+    # the override: warped_gp's NLL is its own distribution's (not the Gaussian of its moments)
+    assert a.model_info["warped_gp"]["transform"] in ("log", "yeo-johnson")
+    d = assessment_to_dict(a)
+    assert d["input"]["between_campaign_sd"] > 0
+    assert {r["surrogate"] for r in d["ranking"]} == set(names)
+
+
+
+@pytest.mark.slow
+def test_campaign_gp_left_out_of_defaults_without_two_campaigns(monkeypatch):
+    from pathlib import Path
+    import advisor
+    import advisor.assessment as A
+    root = Path(__file__).resolve().parent.parent
+    trials = advisor.load_trials(root / "sample_logs" / "moulding_warpage.csv",
+                                 objective="warpage_mm", order="run")   # no campaign column
+    monkeypatch.setattr(A, "surrogate_names", lambda: ["campaign_gp", "baseline"])
+    a = advisor.assess(trials, seed=0, quick=True, backtest=False, plan=False, jobs=1)
+    assert set(a.metrics) == {"baseline"}
+    # named explicitly it still runs (as one GP offset shared by all rows)
+    a = advisor.assess(trials, seed=0, quick=True, surrogates=["campaign_gp"], backtest=False,
+                       plan=False, jobs=1)
+    assert "campaign_gp" in a.metrics and "campaign_gp" not in a.failures
