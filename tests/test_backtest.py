@@ -327,3 +327,41 @@ def test_power_to_detect_a_difference_of_a_tenth():
              for lab in labels if lab != "EI xi=0.01"]
     est = paired_power(diffs, 3, np.random.default_rng(0), delta=0.1, reps=300)
     assert abs(est - hits / 300) < 0.25  # same design; bootstrap of 16 runs is rough
+
+
+class _Blind:
+    """Cannot tell candidates apart: constant mean and std, so every setting breaks
+    its ties at random and all settings are truly equal (random search)."""
+
+    def __init__(self, seed=0, quick=False):
+        self.seed, self.quick = seed, quick
+
+    def fit(self, X, y):
+        self.m_ = float(np.mean(y))
+        return self
+
+    def predict(self, X):
+        return np.full(len(X), self.m_), np.ones(len(X))
+
+
+def make_with_blind(name, seed=0, quick=False):
+    if name == "blind":
+        return _Blind(seed, quick)
+    return make_surrogate(name, seed=seed, quick=quick)
+
+
+@pytest.mark.slow
+def test_end_to_end_equal_settings_keep_the_default(trials):
+    # One seeded backtest where every setting is random search in disguise: the default
+    # must stand (a non-default pick has probability <= 0.05 by Holm's bound, so this
+    # seeded case checks the wiring, the null-rate check above checks the level).
+    plan = plan_for(True, **dict(SMALL, sim_functions=4, sim_seeds=2, replay=False))
+    settings = [AcquisitionSetting("ei", {"xi": 0.01}), AcquisitionSetting("pi"),
+                AcquisitionSetting("ucb")]
+    bt = run_backtest(trials, ["blind"], settings, seed=3, quick=True,
+                      make=make_with_blind, plan=plan)
+    dec = bt["per_surrogate"]["blind"]["decision"]
+    assert dec["experiment"] == "simulated" and dec["chosen"] == "EI xi=0.01"
+    assert not dec["beats_default"]
+    assert all(c["runs"] == 8 for c in dec["comparisons"])
+    assert 0.0 <= dec["power_at_0.1"] <= 1.0
