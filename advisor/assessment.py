@@ -358,17 +358,26 @@ def _replicate_noise(trials: TrialTable):
         return None
 
 
+_CANDIDATE_RULE = ("backtested: the models tied with the calibration leader (up to 2 in "
+                   "quick mode, 3 otherwise), then the next guard-passing model when "
+                   "nothing is tied, and the default GP when it passed the guards; "
+                   "the other models cannot change the recommendation")
+
+
 def _backtest_candidates(ranking, quick: bool) -> list[str]:
-    """The models worth backtesting: those tied with the leader, then the next best
-    guard-passing models, up to 2 (quick) or 3 in all.  Backtesting refits a model at
-    every step, so the grid is kept to the models that could be recommended."""
+    """The models that can matter: those tied with the leader (the leader first), the
+    runner-up when nothing is tied, and the default GP when it passes the guard rails.
+    Backtesting refits a model at every step, so the grid is kept to these."""
     t = ranking.table
     ok = t[(t["status"] == "ok")]
     ok = ok[ok["guard_coverage"].astype(bool) & ok["guard_order"].astype(bool)]
     cap = 2 if quick else 3
+    names = ok["surrogate"].tolist()
     tied = ok[ok["tied_with_leader"].astype(bool)]["surrogate"].tolist()
-    rest = [n for n in ok["surrogate"].tolist() if n not in tied]
-    return (tied + rest)[:max(cap, min(len(tied), cap + 1))]
+    out = tied[:cap] if len(tied) > 1 else names[:2]
+    if "gp" in names and "gp" not in out:
+        out.append("gp")
+    return out
 
 
 def _settings(acquisitions, quick: bool):
@@ -400,9 +409,11 @@ def _quick_model(name: str, seed: int = 0, quick: bool = True, **options):
 def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, executor):
     from .backtest import plan_for, run_backtest
 
-    return run_backtest(trials, candidates, settings, seed=seed, quick=quick,
-                        budget=budget, batch=batch, executor=executor,
-                        make=_quick_model, plan=plan_for(quick))
+    out = run_backtest(trials, candidates, settings, seed=seed, quick=quick,
+                       budget=budget, batch=batch, executor=executor,
+                       make=_quick_model, plan=plan_for(quick))
+    out["candidates_rule"] = _CANDIDATE_RULE
+    return out
 
 
 def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor):
