@@ -354,23 +354,44 @@ def _recommendation(ranking, backtest_out) -> dict:
     source = "default"
     reasons = list(ranking.reasons.get(leader, []))
     choice = (backtest_out or {}).get("per_surrogate", {}).get(leader)
-    if choice and choice.get("acquisition"):
-        acq = dict(choice["acquisition"])
+    decision = (choice or {}).get("decision") or {}
+    if choice and choice.get("acquisition") and decision.get("chosen"):
+        # the paired test against the default decides (advisor.backtest._decision)
         source = "backtest"
-        reasons += [f"acquisition {choice['label']}: {r}" if i == 0 else r
-                    for i, r in enumerate(choice.get("reasons", []))]
+        if decision.get("beats_default"):
+            cmp = next(c for c in decision["comparisons"] if c["label"] == decision["chosen"])
+            acq = _setting_dict(backtest_out, decision["chosen"]) or acq
+            reasons.append(f"acquisition {decision['chosen']}: beats the default EI "
+                           f"xi=0.01 on the same {cmp['runs']} {decision['experiment']} "
+                           f"runs (mean AUC difference {cmp['mean_difference']:.3f}, "
+                           f"Holm-adjusted p = {cmp['p_holm']:.3g} < {decision['alpha']})")
+        else:
+            best_p = min((c["p_holm"] for c in decision["comparisons"]), default=None)
+            reasons.append("acquisition EI xi=0.01 (the default): the logs give no reason "
+                           "to change it; no setting beats it at level "
+                           f"{decision['alpha']} ({decision['test']}"
+                           + ("" if best_p is None else f", smallest adjusted p = {best_p:.3g}")
+                           + ")")
     elif backtest_out is not None:
         reasons.append("acquisition setting is a default (expected improvement, xi = 0.01): "
-                       f"the backtest did not cover {leader} without error")
+                       f"the backtest did not cover {leader} and the default without error")
     else:
         reasons.append("acquisition setting is a default (expected improvement, xi = 0.01): "
                        "the acquisition backtest did not run")
-    acq_strength = _acquisition_strength(choice) if source == "backtest" else None
+    acq_strength = _acquisition_strength(decision) if source == "backtest" else None
     if acq_strength is not None:
         reasons.append(f"strength of the acquisition evidence: {acq_strength[0]} "
                        f"({acq_strength[1]})")
+    test_out = None if source != "backtest" else {
+        "test": decision.get("test"), "level": decision.get("alpha"),
+        "experiment": decision.get("experiment"), "metric": decision.get("metric"),
+        "default": decision.get("default"), "beats_default": decision.get("beats_default"),
+        "p_values": {c["label"]: c["p_value"] for c in decision.get("comparisons", [])},
+        "p_holm": {c["label"]: c["p_holm"] for c in decision.get("comparisons", [])},
+        "power_at_0.1": decision.get("power_at_0.1")}
     return {"surrogate": leader, "acquisition": acq, "acquisition_source": source,
             "acquisition_evidence": None if acq_strength is None else acq_strength[0],
+            "acquisition_test": test_out,
             "acquisition_margins": None if not (choice and choice.get("acquisition")) else {
                 "over_runner_up": choice.get("margin_over_runner_up"),
                 "over_random": choice.get("margin_over_random"),
@@ -391,27 +412,42 @@ def _replicate_noise(trials: TrialTable):
         return None
 
 
+_CANDIDATE_RULE = ("backtested: the models tied with the calibration leader (up to 2 in "
+                   "quick mode, 3 otherwise), then the next guard-passing model when "
+                   "nothing is tied, and the default GP when it passed the guards; "
+                   "the other models cannot change the recommendation")
+
+
 def _backtest_candidates(ranking, quick: bool) -> list[str]:
-    """The models worth backtesting: those tied with the leader, then the next best
-    guard-passing models, up to 2 (quick) or 3 in all.  Backtesting refits a model at
-    every step, so the grid is kept to the models that could be recommended."""
+    """The models that can matter: those tied with the leader (the leader first), the
+    runner-up when nothing is tied, and the default GP when it passes the guard rails.
+    Backtesting refits a model at every step, so the grid is kept to these."""
     t = ranking.table
     ok = t[(t["status"] == "ok")]
     ok = ok[ok["guard_coverage"].astype(bool) & ok["guard_order"].astype(bool)]
     cap = 2 if quick else 3
+    names = ok["surrogate"].tolist()
     tied = ok[ok["tied_with_leader"].astype(bool)]["surrogate"].tolist()
-    rest = [n for n in ok["surrogate"].tolist() if n not in tied]
-    return (tied + rest)[:max(cap, min(len(tied), cap + 1))]
+    out = tied[:cap] if len(tied) > 1 else names[:2]
+    if "gp" in names and "gp" not in out:
+        out.append("gp")
+    return out
 
 
 def _settings(acquisitions, quick: bool):
     from .acquisition import default_settings, parse_settings
 
+    from .acquisition import AcquisitionSetting
+
     if acquisitions is None:
-        return default_settings(quick)
-    if isinstance(acquisitions, str):
-        return parse_settings(acquisitions)
-    return list(acquisitions)
+        out = default_settings(quick)
+    elif isinstance(acquisitions, str):
+        out = parse_settings(acquisitions)
+    else:
+        out = list(acquisitions)
+    # the default is always backtested: every setting is tested against it
+    default = AcquisitionSetting(DEFAULT_ACQUISITION["name"], DEFAULT_ACQUISITION["params"])
+    return out if default in out else [default] + out
 
 
 def _quick_model(name: str, seed: int = 0, quick: bool = True, **options):
@@ -427,9 +463,11 @@ def _quick_model(name: str, seed: int = 0, quick: bool = True, **options):
 def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, executor):
     from .backtest import plan_for, run_backtest
 
-    return run_backtest(trials, candidates, settings, seed=seed, quick=quick,
-                        budget=budget, batch=batch, executor=executor,
-                        make=_quick_model, plan=plan_for(quick))
+    out = run_backtest(trials, candidates, settings, seed=seed, quick=quick,
+                       budget=budget, batch=batch, executor=executor,
+                       make=_quick_model, plan=plan_for(quick))
+    out["candidates_rule"] = _CANDIDATE_RULE
+    return out
 
 
 def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, executor,
@@ -493,22 +531,29 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
     return out, proposals
 
 
-def _acquisition_strength(choice: dict) -> tuple[str, str]:
-    """Plain words for how strongly the backtest supports its chosen setting.
+def _setting_dict(backtest_out, label):
+    for st in backtest_out.get("settings") or []:
+        if st.get("label") == label:
+            return {"name": st["name"], "params": dict(st.get("params") or {})}
+    return None
 
-    *clear*: beats random order and leads the runner-up by at least 0.01 of normalized
-    regret AUC; *weak*: beats random order but is practically tied with the runner-up;
-    *none*: no better than random order on these logs (the setting is then the best of
-    settings that do not beat random, and a fuller backtest is worth running).
+
+def _acquisition_strength(decision: dict) -> tuple[str, str]:
+    """Plain words for the paired test of the settings against the default.
+
+    *clear*: a setting beats the default at the stated level (Holm-adjusted);
+    *weak*: none does, but the best one-sided raw p-value is below the level (a hint
+    the multiplicity correction does not let through); *none*: no setting comes near.
+    With *weak* or *none* the default is recommended.
     """
-    over_random = choice.get("margin_over_random")
-    over_next = choice.get("margin_over_runner_up")
-    if over_random is None or over_random <= 0:
-        return "none", ("no better than random order on these logs; consider a run "
-                        "without --quick, or treat the setting as a default")
-    if over_next is not None and over_next < 0.01:
-        return "weak", "beats random order, but the runner-up setting is practically tied"
-    return "clear", "beats random order and the runner-up setting"
+    comps = decision.get("comparisons") or []
+    alpha = decision.get("alpha", 0.05)
+    if decision.get("beats_default"):
+        return "clear", f"beats the default at Holm-adjusted level {alpha}"
+    if comps and min(c["p_value"] for c in comps) < alpha:
+        return "weak", ("a setting looks better than the default before the correction "
+                        "for the number of settings, not after; the default stands")
+    return "none", "no setting beats the default on these logs; the default stands"
 
 
 def _other_schemes(primary: str, trials) -> list[str]:

@@ -11,6 +11,9 @@ Optional members a model may offer, which the tool uses when present:
 
 * ``input_encoding``: ``"onehot"`` (default) or ``"ordinal"`` for categorical settings;
 * ``noise_std_``: the fitted observation-noise standard deviation, in ``y``'s units;
+* ``predict_latent(X) -> (mean, std_f)``: the posterior mean and standard deviation of
+  the *latent* function (observation noise excluded).  Acquisition functions use it
+  (:func:`latent_predictions`); a model without it gets the documented default there;
 * ``sample_y(X, n_samples, rng) -> (n_samples, len(X))``: *joint* draws of the latent
   function at ``X`` (for Thompson sampling); without it, draws are independent per point;
 * ``uses_groups = True`` with ``fit(X, y, groups=None)`` / ``predict(X, groups=None)``:
@@ -31,7 +34,8 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
-__all__ = ["Surrogate", "ScaledSurrogate", "check_fit_inputs", "check_predictions"]
+__all__ = ["Surrogate", "ScaledSurrogate", "check_fit_inputs", "check_predictions",
+           "latent_predictions"]
 
 
 @runtime_checkable
@@ -64,6 +68,39 @@ def check_predictions(mean, std, n: int) -> tuple[np.ndarray, np.ndarray]:
     if np.any(std <= 0):
         raise ValueError("predict returned a non-positive standard deviation")
     return mean, std
+
+
+def latent_predictions(model, X) -> tuple[np.ndarray, np.ndarray]:
+    """Posterior mean and latent standard deviation (noise excluded) of ``model`` at ``X``.
+
+    In order of preference:
+
+    1. the model's own ``predict_latent(X)`` (or ``latent_predict(X)``, the project GP's
+       older name);
+    2. from ``predict`` and a fitted ``noise_std_``:
+       :math:`\\sigma_f = \\sqrt{\\max(\\sigma^2 - \\sigma_n^2,\\ 10^{-12}\\sigma^2)}`
+       (the predictive variance of a new observation is latent variance plus noise
+       variance for a Gaussian likelihood, Rasmussen & Williams 2006, eq. 2.24); the
+       floor keeps the std positive where the model's noise estimate exceeds its
+       predictive variance;
+    3. otherwise ``predict``'s std is taken as latent (a model that reports no noise is
+       assumed to report the uncertainty of the function).
+
+    Returns arrays validated by :func:`check_predictions`.
+    """
+    n = len(X)
+    own = getattr(model, "predict_latent", None) or getattr(model, "latent_predict", None)
+    if callable(own):
+        return check_predictions(*own(X), n)
+    mean, std = check_predictions(*model.predict(X), n)
+    noise = getattr(model, "noise_std_", None)
+    if noise is None:
+        return mean, std
+    noise = float(noise)
+    if not np.isfinite(noise) or noise <= 0:
+        return mean, std
+    var = std ** 2
+    return mean, np.sqrt(np.maximum(var - noise ** 2, 1e-12 * var))
 
 
 class ScaledSurrogate:
