@@ -123,9 +123,11 @@ RUNS = {
 #: (mean over 500 uniform batches).  Measured (GP, quick, seeds 0 and 1): local
 #: penalization 0.15-0.62 with EI xi=0.01 and 0.32-1.1 with UCB beta=4; the kriging
 #: believer it replaced gave 0.017-0.046 on two of the three logs (EI), and 0.028 for
-#: the demo's moulding batch with four parameters frozen (0.017 vs 0.60).  0.1 sits below every
-#: measured local-penalization batch and well above the old clustered ones.
-DIVERSITY_FRACTION = 0.1
+#: the demo's moulding batch with four parameters frozen (0.017 vs 0.60).  Since EI uses
+#: the latent std (noise excluded, sharper peaks) the forecast log's EI batch measures
+#: 0.09.  0.06 sits below every measured local-penalization batch and above all the old
+#: clustered ones (at most 0.046).
+DIVERSITY_FRACTION = 0.06
 
 
 @pytest.mark.slow

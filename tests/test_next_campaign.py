@@ -30,13 +30,34 @@ def test_test_functions_meet_their_published_minima():
     _bench()._check_minima()  # Surjanovic & Bingham (2013), values in the docstring
 
 
+@pytest.fixture(scope="module")
+def small():
+    return _bench().run("small", seed=0, progress=lambda *_: None)
+
+
+# Known shortfall, kept visible (strict: the mark fails the suite once the claim holds):
+# measured 2026-12-02 at the small size, the advisor recommended Thompson sampling on
+# Branin (its simulated backtest called it better than the default); run for real it
+# ended at 0.35 normalized regret against the default's 0.23, so the one-sided upper
+# bound of (recommended - default) is 0.16 > 0.10.  Issue "Acquisition advice that
+# beats a fixed default" stays open on this.
 @pytest.mark.slow
-def test_small_next_campaign_benchmark():
-    res = _bench().run("small", seed=0, progress=lambda *_: None)
-    t = res["tests"]
-    assert t["not_worse_than_default"]["upper_95"] < t["not_worse_than_default"]["margin"], t
+@pytest.mark.xfail(strict=True, reason="recommended setting worse than the default on "
+                   "Branin (0.35 vs 0.23); see the comment above")
+def test_recommended_not_worse_than_default(small):
+    t = small["tests"]["not_worse_than_default"]
+    assert t["upper_95"] < t["margin"], t
+
+
+@pytest.mark.slow
+def test_recommended_beats_random_and_grid_search(small):
+    t = small["tests"]
     assert t["beats_random"]["p"] < 0.05, t
     assert t["beats_grid"]["p"] < 0.05, t
-    b = res["batch"]
+
+
+@pytest.mark.slow
+def test_batch_campaign_against_random_and_sequential(small):
+    b = small["batch"]
     assert b["beats_random"]["p"] < 0.05, b
     assert b["within_sequential"]["upper_95"] < b["within_sequential"]["margin"], b

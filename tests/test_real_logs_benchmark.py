@@ -31,6 +31,9 @@ from benchmarks.real_logs.problems import PROBLEMS  # noqa: E402
 #: Problems where the current rule misses the target at the small size, and why
 #: (README, "Real-log benchmark").  Remove a name once the rule meets the target there.
 SHORTFALLS = {
+    "wine_forest": "after the campaign-effect and warped GPs joined the candidates the "
+                   "pick's regret is 0.054 nats (target 0.05; the truth itself moves "
+                   "0.2-0.7 nats with the model seed alone)",
     "diabetes_svr": "forward-chaining CRPS prefers the GP; on the new campaigns the "
                     "forest is best by NLL (the pick is 4th)",
     "cancer_svc": "ceiling plateau at 0.373: CV CRPS and NLL both favour the forest, the "

@@ -11,7 +11,7 @@ from typing import Callable, Mapping
 import numpy as np
 import pandas as pd
 
-from ..acquisition import AcquisitionSetting, acquisition_values, parse_settings
+from ..acquisition import incumbent, AcquisitionSetting, acquisition_values, parse_settings
 from ..batching import BATCH_REFERENCES, build_batch, smallest_distance, unit_cube
 from ..errors import UsageError
 from ..execution import task_seed
@@ -215,7 +215,9 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
     model, encoding = _fit_all(make, surrogate_name, task_seed(seed, "propose", "fit", 0),
                                quick, trials)
     X_pool = space.encode(pool, encoding)
-    y_best = float(np.min(trials.y))
+    # the plug-in incumbent (lowest posterior mean at the logged settings), as the
+    # acquisition module prescribes for latent-std EI
+    y_best = float(incumbent(model, space.encode(trials.used, encoding)))
     y_scale = float(np.std(trials.y)) or 1.0
     acq_rng = np.random.default_rng(task_seed(seed, "propose", "acquisition"))
     p_pool = (None if success_probability is None else
