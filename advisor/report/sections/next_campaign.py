@@ -1,0 +1,179 @@
+"""Section 5, the next campaign: parameter relevance, freeze candidates, the proposed
+first batch with predicted intervals and the cautions beside it, learning curve, cost
+projection."""
+
+from __future__ import annotations
+
+from reportlab.lib.units import mm
+from reportlab.platypus import KeepTogether, Paragraph, Spacer
+
+from ._base import (FigureSpec, CAUTION, _RULE, _S, _TEXT_W, _View, _box, _cells, _e,
+                    _heading, _image, _name, _num, _p, _side_by_side, _table)
+
+# ======================================================================================
+# 5. next campaign
+# ======================================================================================
+def _planning_caution() -> str:
+    try:
+        from ...planning import CAUTION as plan_caution
+    except ImportError:  # planning is optional for the report
+        return CAUTION
+    return plan_caution
+
+
+def _relevance(v: _View):
+    return v.plan_part("relevance", "parameter_relevance")
+
+
+def _learning(v: _View):
+    return v.plan_part("learning_curve", "learning")
+
+
+def _cost(v: _View):
+    return v.plan_part("cost", "cost_projection")
+
+
+def _relevance_fig(v: _View):
+    from ..figures import relevance_figure
+
+    return relevance_figure(_relevance(v))
+
+
+def _proposals_fig(v: _View):
+    from ..figures import proposals_figure
+
+    return proposals_figure(v.proposals(), v.objective_label, _best_logged(v), v.direction)
+
+
+def _learning_fig(v: _View):
+    from ..figures import learning_curve_figure
+
+    return learning_curve_figure(_learning(v), v.objective_label, v.styles)
+
+
+def _cost_fig(v: _View):
+    from ..figures import cost_figure
+
+    return cost_figure(_cost(v), v.styles)
+
+
+FIGURES = {f.name: f for f in (
+    FigureSpec("relevance", _relevance_fig,
+               lambda v: _e((_relevance(v) or {}).get("method", ""))),
+    FigureSpec("proposals", _proposals_fig,
+               "Predicted mean and 90% interval of each proposal (new observation, "
+               "noise included), against the best logged value."),
+    FigureSpec("learning_curve", _learning_fig,
+               lambda v: _e((_learning(v) or {}).get("reading")
+                            or "Learning curve did not run.")),
+    FigureSpec("cost", _cost_fig,
+               lambda v: _e((_cost(v) or {}).get("method") or "Cost projection did not run.")),
+)}
+
+
+def story(v: _View) -> list:
+    story = []
+    rel, cost = _relevance(v), _cost(v)
+    learn = _learning(v)
+    fig = {n: (f.build, f.caption_for(v)) for n, f in FIGURES.items()}
+    props = v.proposals()
+    if not (rel or learn or cost or props is not None):
+        return _heading(4) + [_p("The next-campaign plan did not run for this report.")]
+    if rel:  # the heading travels with the first figure, never alone at a page foot
+        story.append(KeepTogether(_heading(4) + [Paragraph("Which parameters matter", _S["h2"]),
+                                   _image(fig["relevance"][0](v)),
+                                   _p(fig["relevance"][1], "caption")]))
+        story += _freeze_block(rel)
+        if rel.get("caution"):
+            story.append(_p(_e(rel["caution"]), "small"))
+    else:
+        story += _heading(4) + [Paragraph("Which parameters matter", _S["h2"]),
+                  _p("Parameter relevance did not run.")]
+    if props is not None:
+        # One block, so the caution is never a page away from the settings it qualifies.
+        story.append(KeepTogether([Paragraph("Proposed first batch", _S["h2"])]
+                                  + _proposal_tables(v, props) + [_side_by_side(
+            [_image(fig["proposals"][0](v), _TEXT_W / 2 - 4),
+             _p(fig["proposals"][1], "caption")],
+            _box(_planning_caution(), "Before running these", _TEXT_W / 2 - 6))]))
+    else:
+        story += [Paragraph("Proposed first batch", _S["h2"]),
+                  _p("No proposals were requested for this report.")]
+    left = [_image(fig["learning_curve"][0](v), _TEXT_W / 2 - 4),
+            _p(fig["learning_curve"][1], "caption")]
+    right = [_image(fig["cost"][0](v), _TEXT_W / 2 - 4), _p(fig["cost"][1], "caption")]
+    story.append(KeepTogether([Paragraph("More trials and their cost", _S["h2"]),
+                               _side_by_side(left, right)]))
+    if cost:
+        story += _cost_table(cost)
+    return story
+
+
+def _best_logged(v: _View):
+    try:
+        y = v.a.trials.y_raw
+        return float(min(y) if v.direction == "minimize" else max(y))
+    except Exception:  # a fake or partial trial table: the reference line is optional
+        return None
+
+
+def _freeze_block(rel) -> list:
+    frozen = [r for r in rel.get("parameters") or [] if r.get("freeze")]
+    if not frozen:
+        return [_p("No parameter is a freeze candidate: each has a total effect that "
+                   "cannot be ruled below the threshold, or a clear permutation importance.",
+                   "small")]
+    rows = [_cells(["parameter", "freeze at (best logged)", "evidence"], "cellhead")]
+    for r in frozen:
+        rows.append(_cells([_e(r.get("name")), _e(r.get("freeze_value")),
+                            _e(r.get("evidence", ""))]))
+    return [_p(f"{len(frozen)} freeze candidate(s):", "small"),
+            _table(rows, [38 * mm, 30 * mm, _TEXT_W - 68 * mm])]
+
+
+def _proposal_tables(v: _View, props) -> list:
+    """Proposals transposed (parameters as rows) so twenty parameters still fit."""
+    params = [p for p in (v.d.get("input") or {}).get("parameters") or [] if p in props]
+    n = len(props)
+    out = []
+    per = 10
+    for start in range(0, n, per):
+        idx = list(range(start, min(n, start + per)))
+        head = ["parameter"] + [f"#{i + 1}" for i in idx]
+        rows = [_cells(head, "cellhead")]
+        for p in params:
+            rows.append(_cells([_e(p)] + [_e(_fmt_setting(props[p].iloc[i])) for i in idx]))
+        for key, lab in (("predicted_mean", f"predicted {v.objective_label}"),
+                         ("predicted_low_90", "90% interval low"),
+                         ("predicted_high_90", "90% interval high")):
+            if key in props:
+                rows.append(_cells([f"<b>{_e(lab)}</b>"]
+                                   + [_num(props[key].iloc[i]) for i in idx]))
+        w = min(20 * mm, (_TEXT_W - 46 * mm) / len(idx))
+        extra = [("LINEABOVE", (0, len(params) + 1), (-1, len(params) + 1), 0.6, _RULE)]
+        out += [_table(rows, [46 * mm] + [w] * len(idx), extra=extra), Spacer(1, 2 * mm)]
+    return out
+
+
+def _fmt_setting(x) -> str:
+    if isinstance(x, float):
+        return _num(x, 4)
+    return "" if x is None else str(x)
+
+
+def _cost_table(cost) -> list:
+    rows = [_cells(["surrogate", "fit s at log size", "exponent b (t ∝ n^b)",
+                    f"projected s / iteration at {cost.get('projected_size', '?')}",
+                    "over limit"], "cellhead")]
+    for n, e in (cost.get("surrogates") or {}).items():
+        if e.get("error"):
+            rows.append(_cells([_name(n), f"<i>error</i>: {_e(e['error'])}", "", "", ""]))
+            continue
+        fit = (e.get("fit_seconds") or [None])[-1]
+        rows.append(_cells([_name(n), _num(fit), _num(e.get("fit_seconds_exponent")),
+                            _num(e.get("projected_seconds_per_iteration")),
+                            "yes" if e.get("over_max_fit_seconds") else "no"]))
+    return [_table(rows, [45 * mm, 28 * mm, 32 * mm, 45 * mm, _TEXT_W - 150 * mm]),
+            _p("Timings were measured on this machine and differ between runs.", "small")]
+
+
