@@ -1,3 +1,4 @@
+import importlib.util
 import os
 import sys
 from pathlib import Path
@@ -14,3 +15,12 @@ if str(TESTS) not in sys.path:
 @pytest.fixture
 def sample_log():
     return ROOT / "sample_logs" / "moulding_warpage.csv"
+
+
+def load_script(relative: str):
+    """Import a script of the repository (``benchmarks/...py``, ``scripts/...py``) by path."""
+    path = ROOT / relative
+    spec = importlib.util.spec_from_file_location(path.stem, path)
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod

@@ -10,20 +10,16 @@ pooled tests), 8 replicates for the batch campaign (Hartmann-3); about a minute 
 
 from __future__ import annotations
 
-import importlib.util
 from pathlib import Path
 
 import pytest
+from conftest import load_script
 
 ROOT = Path(__file__).resolve().parent.parent
 
 
 def _bench():
-    spec = importlib.util.spec_from_file_location("next_campaign",
-                                                  ROOT / "benchmarks" / "next_campaign.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
+    return load_script("benchmarks/next_campaign.py")
 
 
 def test_test_functions_meet_their_published_minima():

@@ -7,13 +7,13 @@ loader cannot drift apart silently.
 
 from __future__ import annotations
 
-import importlib.util
 import re
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
+from conftest import load_script
 
 from advisor.logs import load_trials
 
@@ -31,11 +31,7 @@ RUNS = {
 
 
 def _generator():
-    spec = importlib.util.spec_from_file_location("make_sample_logs",
-                                                  ROOT / "scripts" / "make_sample_logs.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
+    return load_script("scripts/make_sample_logs.py")
 
 
 def _sheet_table(stem: str) -> dict[str, dict]:
