@@ -110,6 +110,9 @@ def _fit_predict_task(name: str, fold: int, X, y, groups, train, test, seed: int
         pred = (model.predict(X[test], groups=groups[test]) if grouped
                 else model.predict(X[test]))
         t2 = time.perf_counter()
+        if not (isinstance(pred, (tuple, list)) and len(pred) == 2):
+            raise ValueError(f"predict returned {type(pred).__name__}, not the pair "
+                             "(mean, std): the model gives no predictive uncertainty")
         mean, std = check_predictions(pred[0], pred[1], len(test))
         if hasattr(model, "predict_dist") and not grouped:
             # a non-Gaussian predictive distribution: per-point scores at variance scale 1

@@ -2,7 +2,9 @@
 
 Built-in models are registered here by name and import path and imported only when
 made, so that a model whose module is missing or broken never stops the others.
-A user's own model is named ``module:Class`` (or ``path/to/file.py:Class``).
+A user's own model is named ``module:Class`` (or ``path/to/file.py:Class``), with
+constructor options as ``:name=value`` after it; a scikit-learn regressor that offers
+``predict(X, return_std=True)`` joins unchanged (:mod:`advisor.surrogates.adapter`).
 """
 
 from __future__ import annotations
@@ -14,6 +16,8 @@ import sys
 from pathlib import Path
 
 from ..errors import UsageError
+from .adapter import (ReturnStdAdapter, check_options, check_uncertainty, parse_model_spec,
+                      takes_return_std, validate_sklearn_params)
 from .base import ScaledSurrogate, Surrogate, check_predictions
 
 __all__ = ["surrogate_names", "make_surrogate", "describe_surrogate", "Surrogate",
@@ -66,7 +70,7 @@ def _load_class(spec: str):
     if spec.count(":") != 1 or not all(spec.split(":")):
         raise UsageError(f"surrogate '{spec}' is not of the form module:Class",
                          fix="write e.g. mypackage.models:MyModel or ./my_model.py:MyModel")
-    module_name, class_name = spec.rsplit(":", 1)
+    module_name, class_name = spec.split(":")
     try:
         if module_name.endswith(".py"):
             file = Path(module_name)
@@ -102,7 +106,8 @@ def make_surrogate(name: str, seed: int = 0, quick: bool = False, **options):
     Parameters
     ----------
     name : str
-        A name from :func:`surrogate_names` or ``module:Class`` for a user's model.
+        A name from :func:`surrogate_names`, or ``module:Class[:option=value...]`` for a
+        user's model (syntax in :mod:`advisor.surrogates.adapter`).
     seed : int
         Seeds every random choice inside the model.
     quick : bool
@@ -111,13 +116,29 @@ def make_surrogate(name: str, seed: int = 0, quick: bool = False, **options):
         Passed to the constructor.
 
     Constructor arguments ``seed`` and ``quick`` are passed only when the class
-    accepts them, so a user's model needs neither.
+    accepts them, so a user's model needs neither; a class taking ``random_state``
+    (scikit-learn's name) but not ``seed`` gets the seed there unless an option sets it.
+    A user's model whose ``predict`` takes ``return_std`` comes back wrapped in
+    :class:`ReturnStdAdapter`.
+
+    Raises
+    ------
+    UsageError
+        Unknown name, unimportable class, an option the constructor does not take or
+        scikit-learn rejects, or a scikit-learn regressor that gives no uncertainty.
     """
-    spec = BUILTIN[name][0] if name in BUILTIN else name
-    if name not in BUILTIN and ":" not in name:
+    if name in BUILTIN:
+        spec, user = BUILTIN[name][0], False
+    elif ":" in name:
+        spec, given = parse_model_spec(name)
+        options = {**given, **options}
+        user = True
+    else:
         raise UsageError(f"unknown surrogate '{name}'; known: " + ", ".join(surrogate_names()),
                          fix="pick a listed name or give module:Class")
     cls = _load_class(spec)
+    if user:
+        check_options(name, cls, options)
     kwargs = dict(options)
     try:
         accepted = inspect.signature(cls).parameters
@@ -126,6 +147,18 @@ def make_surrogate(name: str, seed: int = 0, quick: bool = False, **options):
     has_var_kw = any(p.kind is p.VAR_KEYWORD for p in accepted.values())
     if "seed" in accepted or has_var_kw:
         kwargs.setdefault("seed", seed)
+    elif "random_state" in accepted:
+        kwargs.setdefault("random_state", int(seed) % 2 ** 32)
     if "quick" in accepted or has_var_kw:
         kwargs.setdefault("quick", quick)
-    return cls(**kwargs)
+    if not user:
+        return cls(**kwargs)
+    try:
+        model = cls(**kwargs)
+    except Exception as exc:  # a constructor refusing its options is a usage problem
+        raise UsageError(f"surrogate '{name}': {cls.__name__}(...) refused its options "
+                         f"({type(exc).__name__}: {' '.join(str(exc).split())[:200]})",
+                         fix="check the options' values") from None
+    validate_sklearn_params(name, model)
+    check_uncertainty(name, model)
+    return ReturnStdAdapter(model) if takes_return_std(cls) else model

@@ -26,16 +26,32 @@ Optional members a model may offer, which the tool uses when present:
 
 :class:`ScaledSurrogate` standardizes inputs and outputs once, so subclasses work on
 unit-scale data and never repeat that code.
+
+Every built-in model also follows scikit-learn's estimator conventions through
+:class:`EstimatorMixin` (which :class:`ScaledSurrogate` includes): ``get_params`` /
+``set_params`` and :func:`sklearn.base.clone` work, and ``predict`` takes
+``return_std``.  The two conventions meet like this (backward compatible: the project's
+protocol is the default)::
+
+    predict(X)                    -> (mean, std)   the project's protocol
+    predict(X, return_std=True)   -> (mean, std)   scikit-learn's spelling, same pair
+    predict(X, return_std=False)  -> mean          scikit-learn's mean-only form
+
+So code written for either convention that asks for the standard deviation gets the
+same numbers; only a caller that wants the mean alone must say ``return_std=False``.
 """
 
 from __future__ import annotations
 
+import functools
+import inspect
 from typing import Protocol, runtime_checkable
 
 import numpy as np
+from sklearn.base import BaseEstimator
 
-__all__ = ["Surrogate", "ScaledSurrogate", "check_fit_inputs", "check_predictions",
-           "latent_predictions"]
+__all__ = ["Surrogate", "ScaledSurrogate", "EstimatorMixin", "check_fit_inputs",
+           "check_predictions", "latent_predictions"]
 
 
 @runtime_checkable
@@ -103,7 +119,46 @@ def latent_predictions(model, X) -> tuple[np.ndarray, np.ndarray]:
     return mean, np.sqrt(np.maximum(var - noise ** 2, 1e-12 * var))
 
 
-class ScaledSurrogate:
+def _with_return_std(predict):
+    """Wrap a protocol ``predict(X, ...) -> (mean, std)`` so that it also takes
+    ``return_std`` (None or True: the pair; False: the mean alone)."""
+    if getattr(predict, "_takes_return_std", False):
+        return predict
+
+    @functools.wraps(predict)
+    def wrapper(self, X, *args, return_std=None, **kwargs):
+        mean, std = predict(self, X, *args, **kwargs)
+        return mean if return_std is False else (mean, std)
+
+    # the signature users (and inspect) see names return_std, keyword-only
+    sig = inspect.signature(predict)
+    params = list(sig.parameters.values())
+    extra = inspect.Parameter("return_std", inspect.Parameter.KEYWORD_ONLY, default=None)
+    at = len(params) - (params[-1].kind is inspect.Parameter.VAR_KEYWORD if params else 0)
+    wrapper.__signature__ = sig.replace(parameters=params[:at] + [extra] + params[at:])
+    wrapper._takes_return_std = True
+    return wrapper
+
+
+class EstimatorMixin(BaseEstimator):
+    """scikit-learn's estimator conventions for a protocol model.
+
+    ``get_params`` / ``set_params`` come from :class:`sklearn.base.BaseEstimator` (a
+    library rather than our own code: it reads the constructor's signature, so every
+    constructor argument must be stored under its own name, unchanged, as
+    scikit-learn requires).  Each subclass's own ``predict`` is wrapped when the class
+    is defined so that it also takes ``return_std`` (see the module docstring); the
+    model's code keeps writing the protocol's ``predict(X) -> (mean, std)``.
+    """
+
+    def __init_subclass__(cls, **kwargs):
+        own = cls.__dict__.get("predict")
+        if callable(own):
+            cls.predict = _with_return_std(own)
+        super().__init_subclass__(**kwargs)
+
+
+class ScaledSurrogate(EstimatorMixin):
     """Base class: standardize X columns and y, then call ``_fit`` / ``_predict``.
 
     Constant input columns are left unscaled (unit divisor) rather than divided by zero.

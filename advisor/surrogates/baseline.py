@@ -9,12 +9,12 @@ from __future__ import annotations
 
 import numpy as np
 
-from .base import check_fit_inputs
+from .base import EstimatorMixin, check_fit_inputs
 
 __all__ = ["MeanBaseline"]
 
 
-class MeanBaseline:
+class MeanBaseline(EstimatorMixin):
     """Predict ``mean(y)`` with standard deviation ``std(y, ddof=1)`` at every point.
 
     Parameters

@@ -36,7 +36,7 @@ from __future__ import annotations
 import numpy as np
 from sklearn.ensemble import RandomForestRegressor
 
-from .base import check_fit_inputs
+from .base import EstimatorMixin, check_fit_inputs
 
 __all__ = ["RandomForestSurrogate", "total_variance_moments"]
 
@@ -69,7 +69,7 @@ def total_variance_moments(leaf_means, leaf_vars):
     return mean, np.maximum(var, 0.0)
 
 
-class RandomForestSurrogate:
+class RandomForestSurrogate(EstimatorMixin):
     """Random forest with mixture (law of total variance) predictive uncertainty.
 
     Parameters

@@ -23,7 +23,7 @@ import math
 import numpy as np
 from scipy import linalg, optimize
 
-from .base import check_fit_inputs
+from .base import EstimatorMixin, check_fit_inputs
 from .gp import _LOG_2PI, _cholesky_with_jitter, matern52
 
 __all__ = ["CampaignGP"]
@@ -53,7 +53,7 @@ def _nlml(log_params, X, y, S, jitter):
     return float(0.5 * y @ a + np.log(np.diag(L)).sum() + 0.5 * len(y) * _LOG_2PI)
 
 
-class CampaignGP:
+class CampaignGP(EstimatorMixin):
     """Matérn-5/2 ARD GP plus a campaign random effect, type-II ML hyperparameters.
 
     Parameters

@@ -16,13 +16,13 @@ import numpy as np
 from scipy import stats
 
 from ..distributions import OutputWarp, WarpedNormal
-from .base import check_fit_inputs
+from .base import EstimatorMixin, check_fit_inputs
 from .gp import MaternGP
 
 __all__ = ["WarpedGP"]
 
 
-class WarpedGP:
+class WarpedGP(EstimatorMixin):
     """Matérn GP on ``T(y)``; predictive distribution transformed back.
 
     Parameters
