@@ -22,7 +22,7 @@ demo: $(STAMP)
 	$(PY) -m advisor assess sample_logs/fermentation_yield.csv --objective yield_g_per_l --maximize \
 	    --campaign batch_series --order run --status outcome --success ok --out reports --seed $(SEED) --quick --propose 5
 	$(PY) -m advisor assess sample_logs/forecast_tuning.csv --objective val_mape \
-	    --campaign study --order trial --space sample_logs/forecast_tuning.space.toml --out reports --seed $(SEED) --quick --propose 5
+	    --campaign search_round --order trial --space sample_logs/forecast_tuning.space.toml --out reports --seed $(SEED) --quick --propose 5
 
 # The whole suite, slow tests included (about 4 minutes on 2 cores); `make test-fast`
 # skips the tests marked slow for a quick loop while editing.

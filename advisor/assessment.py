@@ -79,6 +79,26 @@ class Assessment:
         from .report.export import assessment_to_dict
         return assessment_to_dict(self)
 
+    # The report package sits above this module; these thin delegations import it at
+    # call time only (as to_dict does), so importing assessment never pulls it in.
+    def _repr_html_(self) -> str:
+        """Jupyter's rich display: a compact HTML summary (recommendation, ranking
+        table, calibration figure) from the same section content as the PDF."""
+        from .report.notebook import to_html
+        return to_html(self)
+
+    def figure(self, name: str):
+        """The report's figure ``name`` as a :class:`matplotlib.figure.Figure`; names
+        in :meth:`figure_names` (e.g. ``"calibration"``, ``"coverage"``)."""
+        from .report.notebook import figure
+        return figure(self, name)
+
+    @staticmethod
+    def figure_names() -> list[str]:
+        """Names :meth:`figure` accepts, in the report's order."""
+        from .report.notebook import figure_names
+        return figure_names()
+
 
 def _package_versions() -> dict:
     out = {"advisor": __version__, "python": platform.python_version()}
@@ -130,6 +150,25 @@ def _fit_predict_task(name: str, fold: int, X, y, groups, train, test, seed: int
     return out
 
 
+def _as_trials(trials, load_options: dict) -> TrialTable:
+    """A TrialTable as given, or read from a path / DataFrame with ``load_options``."""
+    if isinstance(trials, TrialTable):
+        if load_options:
+            raise UsageError("assess got a loaded TrialTable and also log options ("
+                             + ", ".join(sorted(load_options)) + ")",
+                             fix="give the options to load_trials, or pass the path or "
+                                 "DataFrame to assess")
+        return trials
+    from .logs import load_trials
+
+    unknown = set(load_options) - set(inspect.signature(load_trials).parameters)
+    if unknown:
+        raise UsageError("assess has no option " + ", ".join(sorted(unknown)),
+                         fix="check the spelling (see help(advisor.assess) and "
+                             "help(advisor.load_trials))")
+    return load_trials(trials, **load_options)
+
+
 def _encoding_of(name: str) -> str:
     try:
         model = make_surrogate(name, seed=0, quick=True)
@@ -149,13 +188,17 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
            backtest: bool = True, plan: bool = True, freeze: bool = False,
            progress: Callable[[int, int, str], None] | None = None,
            command: str | None = None, campaign_order: Sequence[str] | None = None,
-           model_time_limit: float | None = 600.0) -> Assessment:
+           model_time_limit: float | None = 600.0, **load_options) -> Assessment:
     """Cross-validate every candidate surrogate on ``trials`` and recommend one.
 
     Parameters
     ----------
-    trials : TrialTable
-        From :func:`advisor.load_trials`.
+    trials : TrialTable, str, Path or pandas.DataFrame
+        From :func:`advisor.load_trials`; or a path or DataFrame, which is then read by
+        ``load_trials(trials, **load_options)``.
+    **load_options :
+        ``objective``, ``direction``, ``campaign``, ``order``, ... for
+        :func:`advisor.load_trials`, when ``trials`` is a path or a DataFrame.
     seed : int
         Run seed; every random choice derives from it.
     quick : bool
@@ -195,6 +238,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     Assessment
     """
     t_start = time.perf_counter()
+    trials = _as_trials(trials, load_options)
     names = list(surrogates) if surrogates else surrogate_names()
     if not surrogates and not (trials.campaign and trials.n_campaigns >= 2):
         # a campaign random effect needs two campaigns to be identified; by default the

@@ -59,8 +59,13 @@ def build_parser() -> argparse.ArgumentParser:
     a.add_argument("--quick", action="store_true", help="quick budget")
     a.add_argument("--surrogates", type=_csv_list, help="built-in surrogates to compare, "
                    "comma-separated (default: all); see 'advisor surrogates'")
-    a.add_argument("--surrogate", action="append", default=[], metavar="MODULE:CLASS",
-                   help="add your own model (any class with fit/predict); repeatable")
+    a.add_argument("--surrogate", action="append", default=[],
+                   metavar="MODULE:CLASS[:NAME=VALUE...]",
+                   help="add your own model: a class with fit(X, y) and predict(X) -> "
+                        "(mean, std), or a scikit-learn regressor whose predict takes "
+                        "return_std=True; constructor options follow as :name=value "
+                        "(e.g. sklearn.linear_model:BayesianRidge:max_iter=500); "
+                        "repeatable")
     a.add_argument("--validation", default="auto",
                    choices=["auto", "kfold", "forward", "campaign"],
                    help="validation scheme (default auto: forward chaining with an order "
@@ -177,6 +182,12 @@ def _assess(args) -> int:
     if args.space:
         load_kwargs["space"] = args.space
     trials = load_trials(args.log, **load_kwargs)
+    if args.surrogate:
+        # a user's model that cannot be made (bad option, no uncertainty) is refused
+        # before the output folder is created, so a refusal leaves no trace
+        from .surrogates import make_surrogate
+        for spec in args.surrogate:
+            make_surrogate(spec, seed=args.seed, quick=args.quick)
     _make_out_dir(out)
     bar, tick = _progress(args.quiet)
     command = "advisor " + " ".join(shlex.quote(x) for x in sys.argv[1:]) \

@@ -85,7 +85,8 @@ import pandas as pd
 from .errors import InputError, UsageError
 from .space import ParameterSpace, SpaceFile, read_space_file
 
-__all__ = ["TrialTable", "load_trials", "MIN_TRIALS", "DEFAULT_SUCCESS", "file_sha256"]
+__all__ = ["TrialTable", "load_trials", "MIN_TRIALS", "DEFAULT_SUCCESS", "file_sha256",
+           "frame_csv_bytes", "FRAME_SOURCE"]
 
 #: Fewest successful trials an assessment accepts: two folds of at least four points
 #: each, so that every fold's metrics are defined.
@@ -127,10 +128,11 @@ class TrialTable:
     objective, direction : str
     campaign, order, status : str or None
         Column names, when the log has them.
-    source : str
-        The path read.
+    source : str or None
+        The path read; None for a DataFrame (named :data:`FRAME_SOURCE` in messages).
     sha256 : str
-        SHA-256 of the file's bytes (to tie a report to its input).
+        SHA-256 of the file's bytes (to tie a report to its input); for a DataFrame, of
+        its canonical CSV form (:func:`frame_csv_bytes`).
     rows_read : int
         Data rows read (blank rows not counted).
     failures : list of dict
@@ -153,7 +155,7 @@ class TrialTable:
     campaign: str | None = None
     order: str | None = None
     status: str | None = None
-    source: str = "<memory>"
+    source: str | None = "<memory>"
     sha256: str = ""
     rows_read: int = 0
     failures: list[dict] = field(default_factory=list)
@@ -327,6 +329,36 @@ def file_sha256(path: Path) -> str:
     return h.hexdigest()
 
 
+#: How messages name a DataFrame given to :func:`load_trials` in place of a file.
+FRAME_SOURCE = "<DataFrame>"
+
+
+def frame_csv_bytes(frame: pd.DataFrame) -> bytes:
+    """The canonical CSV form of a DataFrame, which :func:`load_trials` reads and hashes.
+
+    ``frame.to_csv(index=False, lineterminator="\\n")`` in UTF-8 (pandas writes floats
+    by their shortest round-trip repr, so no digit is lost); a named index (or any
+    MultiIndex) is kept as leading columns.  A DataFrame saved with
+    ``frame.to_csv(path, index=False)`` on a POSIX system therefore gives a file whose
+    SHA-256, and every result, equal those of the DataFrame itself.
+    """
+    if isinstance(frame.index, pd.MultiIndex) or frame.index.name is not None:
+        frame = frame.reset_index()
+    return frame.to_csv(index=False, lineterminator="\n").encode("utf-8")
+
+
+def _read_frame(frame: pd.DataFrame) -> _Raw:
+    # Through the CSV reader, byte for byte as from a file, so that a DataFrame and its
+    # saved CSV are read (missing tokens, decimals, notes) the same way.
+    path = Path(FRAME_SOURCE)
+    data = frame_csv_bytes(frame)
+    header, rows, lines, notes, info = _read_csv(path, data)
+    header_line = info.pop("header_line", 1)
+    info["format"] = "dataframe"
+    return _assemble(path, header, rows, lines, hashlib.sha256(data).hexdigest(), notes,
+                     info, header_line)
+
+
 # ======================================================================================
 # load_trials
 # ======================================================================================
@@ -338,8 +370,10 @@ def load_trials(path, objective: str | None = None, direction: str | None = None
 
     Parameters
     ----------
-    path : str or Path
-        The log.  Never modified.
+    path : str, Path or pandas.DataFrame
+        The log, never modified; or a DataFrame holding it (one row per trial), read as
+        its canonical CSV form (:func:`frame_csv_bytes`): line numbers in messages
+        count the header as line 1, so the DataFrame's first row is line 2.
     objective : str, optional
         Column holding the measured objective; may be left out when the space file names
         it.
@@ -371,8 +405,11 @@ def load_trials(path, objective: str | None = None, direction: str | None = None
                                           for c in (objective, campaign, order, status))
     spec, given_space = _resolve_space_arg(space)
     objective, direction, units = _resolve_objective(objective, direction, spec)
-    path = Path(path)
-    raw = _read_raw(path)
+    if isinstance(path, pd.DataFrame):
+        raw, path, source = _read_frame(path), Path(FRAME_SOURCE), None
+    else:
+        path = Path(path)
+        raw, source = _read_raw(path), str(path)
     columns = raw.header
     roles = {"objective": objective, "campaign": campaign, "order": order,
              "status": status}
@@ -380,7 +417,9 @@ def load_trials(path, objective: str | None = None, direction: str | None = None
     reserved = {c for c in roles.values() if c is not None}
     params, named, notes = _choose_params(raw, params, reserved, spec, given_space, path)
     builder = _Builder(raw, path, roles, given_space, spec)
-    return builder.build(params, named, direction, success, units, notes)
+    table = builder.build(params, named, direction, success, units, notes)
+    table.source = source
+    return table
 
 
 def _resolve_space_arg(space):

@@ -136,9 +136,9 @@ _OPT_EFFECT = {"adam": 0.0, "adamw": -0.3, "sgd": 1.0}
 _OPT_LR_SHIFT = {"adam": 0.0, "adamw": 0.0, "sgd": 0.8}  # sgd wants ~6x larger steps
 
 
-def forecast_true_mape(lr, wd, layers, units, dropout, opt, study_shift=0.0):
+def forecast_true_mape(lr, wd, layers, units, dropout, opt, round_shift=0.0):
     """Invented response (validation MAPE, %): see sample_logs/forecast_tuning.md."""
-    return (6.0 + _OPT_EFFECT[opt] + study_shift
+    return (6.0 + _OPT_EFFECT[opt] + round_shift
             + 1.1 * (np.log10(lr) + 2.7 - _OPT_LR_SHIFT[opt]) ** 2
             + 0.15 * (np.log10(wd) + 4.0) ** 2
             + 0.35 * (layers - 3) ** 2
@@ -146,10 +146,10 @@ def forecast_true_mape(lr, wd, layers, units, dropout, opt, study_shift=0.0):
             + 6.0 * (dropout - 0.15) ** 2)
 
 
-def forecast_tuning(seed: int = 31, studies: int = 4, per_study: int = 40) -> pd.DataFrame:
+def forecast_tuning(seed: int = 31, rounds: int = 4, per_round: int = 40) -> pd.DataFrame:
     """Invented: a team tunes a forecasting network, MINIMIZING validation MAPE (%).
 
-    Four studies (one per data split) of 40 trials each.  Runs with too large a
+    Four search rounds (one per data split) of 40 trials each.  Runs with too large a
     learning rate diverge (objective written as empty, ``nan`` or ``diverged``); a
     free-text ``notes`` column differs on every row.
     """
@@ -160,14 +160,14 @@ def forecast_tuning(seed: int = 31, studies: int = 4, per_study: int = 40) -> pd
     centre = np.array([-2.7, -4.0, 3.0, 7.0, 0.15])
     hosts = ("node-a", "node-b", "node-c")
     rows = []
-    for s in range(studies):
+    for s in range(rounds):
         shift = float(rng.normal(0, 0.3))
         last_ok = None
-        for trial in range(1, per_study + 1):
+        for trial in range(1, per_round + 1):
             if trial in (20, 35) and last_ok is not None:
                 x, opt = last_ok  # a re-run of an earlier setting (new seed)
             else:
-                x = _toward(rng, centre, lows, highs, trial - 1, per_study, 12)
+                x = _toward(rng, centre, lows, highs, trial - 1, per_round, 12)
                 opt = FORECAST_OPTIMIZERS[rng.integers(3)] if trial <= 12 or rng.random() < 0.3 \
                     else "adamw"
             lr = float(f"{10 ** x[0]:.3g}")
@@ -181,14 +181,14 @@ def forecast_tuning(seed: int = 31, studies: int = 4, per_study: int = 40) -> pd
             host = hosts[rng.integers(3)]
             if diverge or rng.random() < 0.03:
                 val = ["", "nan", "diverged"][rng.integers(3)]
-                note = (f"study {s + 1} trial {trial}: loss blew up at epoch "
+                note = (f"round {s + 1} trial {trial}: loss blew up at epoch "
                         f"{int(rng.integers(1, 30))} on {host}" if diverge else
-                        f"study {s + 1} trial {trial}: preempted on {host}")
+                        f"round {s + 1} trial {trial}: preempted on {host}")
             else:
                 val = f"{y:.3f}"
                 last_ok = (x, opt)
-                note = f"study {s + 1} trial {trial}: {int(rng.integers(20, 90))} epochs on {host}"
-            rows.append({"study": f"S{s + 1}", "trial": trial, "learning_rate": lr,
+                note = f"round {s + 1} trial {trial}: {int(rng.integers(20, 90))} epochs on {host}"
+            rows.append({"search_round": f"R{s + 1}", "trial": trial, "learning_rate": lr,
                          "weight_decay": wd, "n_layers": layers, "hidden_units": units,
                          "dropout": dropout, "optimizer": opt, "val_mape": val,
                          "notes": note})

@@ -115,7 +115,7 @@ RUNS = {
     "fermentation_yield": dict(objective="yield_g_per_l", direction="maximize",
                                campaign="batch_series", order="run", status="outcome",
                                success=["ok"]),
-    "forecast_tuning": dict(objective="val_mape", campaign="study", order="trial",
+    "forecast_tuning": dict(objective="val_mape", campaign="search_round", order="trial",
                             space=SAMPLES / "forecast_tuning.space.toml"),
 }
 

@@ -26,7 +26,7 @@ RUNS = {
     "fermentation_yield": dict(objective="yield_g_per_l", direction="maximize",
                                campaign="batch_series", order="run", status="outcome",
                                success=["ok"]),
-    "forecast_tuning": dict(objective="val_mape", campaign="study", order="trial"),
+    "forecast_tuning": dict(objective="val_mape", campaign="search_round", order="trial"),
 }
 
 
@@ -120,7 +120,7 @@ def test_generator_reproduces_committed_logs(stem):
 
 
 def test_space_file_example_loads():
-    table = load_trials(SAMPLES / "forecast_tuning.csv", campaign="study", order="trial",
+    table = load_trials(SAMPLES / "forecast_tuning.csv", campaign="search_round", order="trial",
                         space=SAMPLES / "forecast_tuning.space.toml")
     assert table.objective == "val_mape" and table.units == "%"
     assert table.space["hidden_units"].log and table.space["hidden_units"].source == "given"

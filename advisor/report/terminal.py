@@ -19,7 +19,7 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
     con = console or Console(width=None if Console().is_terminal else 132, highlight=False)
     d = payload
     inp = d["input"]
-    con.print(f"[bold]{inp['path']}[/]  sha256 {inp['sha256'][:12]}  "
+    con.print(f"[bold]{inp['path'] or 'in-memory DataFrame'}[/]  sha256 {inp['sha256'][:12]}  "
               f"{inp['rows_used']} trials used, {inp['rows_failed']} failed, "
               f"{len(d['campaigns'])} campaign(s); objective {inp['objective']} "
               f"({inp['direction']})")

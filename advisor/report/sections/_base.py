@@ -232,7 +232,7 @@ class _View:
         self.ok = [r["surrogate"] for r in self.ranking if r.get("status") == "ok"]
         self.styles = model_styles(self.names)
         inp = self.d.get("input") or {}
-        self.log_name = Path(str(inp.get("path") or "trial log")).name
+        self.log_name = Path(str(inp.get("path") or "in-memory DataFrame")).name
         self.sha = str(inp.get("sha256") or "")
         self.objective = str(inp.get("objective") or "objective")
         units = getattr(a.trials, "units", "") or ""
