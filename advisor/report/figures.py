@@ -169,8 +169,9 @@ def _finite(v) -> bool:
 
 
 def _short(name: str, width: int = 22) -> str:
-    """Tick labels: user models drop their module path; long names are cut."""
-    text = name.split(":")[-1] if ":" in name else name
+    """Tick labels: user models drop their module path (``module:Class:opt=v`` →
+    ``Class:opt=v``); long names are cut."""
+    text = name.split(":", 1)[1] if ":" in name else name
     return text if len(text) <= width else text[: width - 1] + "…"
 
 

@@ -204,7 +204,7 @@ def _heading(i: int) -> list:
 
 
 def _short(name: str) -> str:
-    return name.split(":")[-1] if ":" in str(name) else str(name)
+    return str(name).split(":", 1)[1] if ":" in str(name) else str(name)
 
 
 def _name(name) -> str:
@@ -212,7 +212,7 @@ def _name(name) -> str:
     name = str(name)
     if ":" not in name:
         return _e(name)
-    mod, cls = name.rsplit(":", 1)
+    mod, cls = name.split(":", 1)  # cls keeps any :option=value after it
     return f"{_e(cls)}<br/><font size=5.8 color='#555555'>{_e(mod)}</font>"
 
 
