@@ -110,6 +110,12 @@ def test_gpr_through_the_door_matches_sklearn():
     np.testing.assert_allclose(br.predict(X[:9])[1], bs, rtol=1e-10)
 
 
+def test_subclass_of_a_builtin_is_not_wrapped():
+    # a user's model built on ours keeps its own members (sample_y for Thompson draws)
+    model = make_surrogate("advisor.surrogates.gp:MaternGP:maxiter=20", seed=4)
+    assert type(model).__name__ == "MaternGP" and model.maxiter == 20 and model.seed == 4
+
+
 GPR = "sklearn.gaussian_process:GaussianProcessRegressor:normalize_y=true:alpha=1e-3"
 RIDGE_B = "sklearn.linear_model:BayesianRidge"
 CLI = ["--objective", "warpage_mm", "--campaign", "lot", "--order", "run", "--quick",

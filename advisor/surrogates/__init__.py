@@ -18,7 +18,7 @@ from pathlib import Path
 from ..errors import UsageError
 from .adapter import (ReturnStdAdapter, check_options, check_uncertainty, parse_model_spec,
                       takes_return_std, validate_sklearn_params)
-from .base import ScaledSurrogate, Surrogate, check_predictions
+from .base import EstimatorMixin, ScaledSurrogate, Surrogate, check_predictions
 
 __all__ = ["surrogate_names", "make_surrogate", "describe_surrogate", "Surrogate",
            "ScaledSurrogate", "check_predictions", "BUILTIN"]
@@ -161,4 +161,7 @@ def make_surrogate(name: str, seed: int = 0, quick: bool = False, **options):
                          fix="check the options' values") from None
     validate_sklearn_params(name, model)
     check_uncertainty(name, model)
-    return ReturnStdAdapter(model) if takes_return_std(cls) else model
+    # our own estimators (a user's subclass of a built-in) keep the protocol and their
+    # optional members (sample_y, noise_std_, info_): only foreign ones are wrapped
+    foreign = takes_return_std(cls) and not isinstance(model, EstimatorMixin)
+    return ReturnStdAdapter(model) if foreign else model
