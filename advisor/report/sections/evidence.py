@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from reportlab.lib import colors
 from reportlab.lib.units import mm
-from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
 
 from ._base import (_S, _TEXT_W, FigureSpec, TableData, _cells, _e, _figure_block, _finite,
                     _heading, _image, _name, _num, _p, _pct, _side_by_side, _table, _View)
@@ -117,12 +117,15 @@ def ties_table(v: _View) -> TableData:
     rows = [["rank / surrogate", "CRPS − leader (95% interval)", "P(best)",
              "MCS p-value", "in the 95% set"]
             + [f"{lab} (mean ± sd over folds)" for _, lab in FOLD_SPREAD_COLUMNS]]
+    leader = (v.d.get("recommendation") or {}).get("surrogate")
     for e in v.ranking:
         if e.get("status") != "ok":
             continue
         c = e.get("comparison") or {}
         diff = _num(c.get("crps_diff"))
-        if _finite(c.get("crps_diff_low")) and _finite(c.get("crps_diff_high")):
+        if e["surrogate"] == leader:
+            diff = "leader"
+        elif _finite(c.get("crps_diff_low")) and _finite(c.get("crps_diff_high")):
             diff += (f"<br/><font size=5.8 color='#555555'>{_num(c['crps_diff_low'])} – "
                      f"{_num(c['crps_diff_high'])}</font>")
         in_set = c.get("in_mcs", c.get("tied_with_leader"))
@@ -143,7 +146,7 @@ def ties_intro(v: _View) -> str:
     by_campaign = bool(inp.get("campaign")) and len(v.d.get("campaigns") or []) >= 2
     unit = ("campaign × fold cells" if by_campaign else
             "runs of consecutive held-out trials, four per fold")
-    strat = (", stratified by fold" if blocks.get("stratified_by_fold") else "")
+    strat = (", stratified by fold," if blocks.get("stratified_by_fold") else "")
     return (f"Ties are decided by a {100 * (1 - float(level)):.0f}% model confidence set "
             f"(Hansen, Lunde &amp; Nason 2011): a model is tied with the leader when its "
             f"p-value is at least {_num(level)}. Held-out errors are correlated within a "
@@ -228,12 +231,13 @@ def story(v: _View) -> list:
     story.append(_p("Lower is better for NLL, CRPS, calibration error and sharpness; "
                     "higher for the rank correlations and the top-region scores; seconds are "
                     "the mean per fold on this machine (they vary between runs).", "small"))
-    if v.ok:
-        story.append(Paragraph("Ties and the chance of being best", _S["h2"]))
-        story.append(_p(ties_intro(v), "small"))
+    if v.ok:  # heading, the rule and its table stay on one page
         w = [38 * mm, 34 * mm, 16 * mm, 18 * mm, 18 * mm]
         rest = (_TEXT_W - sum(w)) / len(FOLD_SPREAD_COLUMNS)
-        story.append(ties_table(v).to_pdf(w + [rest] * len(FOLD_SPREAD_COLUMNS)))
+        story.append(KeepTogether([
+            Paragraph("Ties and the chance of being best", _S["h2"]),
+            _p(ties_intro(v), "small"),
+            ties_table(v).to_pdf(w + [rest] * len(FOLD_SPREAD_COLUMNS))]))
     story.append(Paragraph("How each model was fitted", _S["h2"]))
     story += _model_notes(v)
     if not v.ok:

@@ -121,10 +121,10 @@ def _interval(iv, margin=None) -> str:
     """``low – high``; the upper end in bold when it reaches the margin (it blocked)."""
     if not iv or not all(_finite(x) for x in iv):
         return "–"
-    hi = _num(iv[1])
+    hi = f"{float(iv[1]):.3f}"  # shares of variance: fixed decimals compare at a glance
     if _finite(margin) and not float(iv[1]) < float(margin):
         hi = f"<b>{hi}</b>"
-    return f"{_num(iv[0])} – {hi}"
+    return f"{float(iv[0]):.3f} – {hi}"
 
 
 def freeze_table(rel) -> TableData:
@@ -147,10 +147,11 @@ def freeze_table(rel) -> TableData:
             if len(p_iv) == 2 and _finite(p_iv[1]) and _finite(p_m) and p_iv[1] >= p_m:
                 why.append("permutation")
             decision = ("keep tuning (" + " and ".join(why) + ")") if why else "not judged"
-        rows.append([_e(r.get("name")), _num(r.get("total")),
+        rows.append([_e(r.get("name")), f"{r['total']:.3f}" if _finite(r.get("total")) else "n/a",
                      _interval(r.get("total_interval"), t_m),
                      _interval(r.get("total_interval_monte_carlo")),
-                     _num(r.get("permutation_importance")),
+                     (f"{r['permutation_importance']:.3f}"
+                      if _finite(r.get("permutation_importance")) else "n/a"),
                      _interval(r.get("permutation_interval"), p_m), decision])
     return TableData(rows)
 
@@ -169,7 +170,7 @@ def _freeze_block(rel) -> list:
              f"total-index interval comes from {refits}, so it carries the model's own "
              "uncertainty; the Monte-Carlo interval of the one fitted model is shown beside "
              "it for comparison. Bold: an upper end that reached its margin and blocked the "
-             f"freeze. {n_frozen or 'No'} parameter(s) are freeze candidates.")
+             f"freeze. Freeze candidates: {n_frozen}.")
     w = [34 * mm, 16 * mm, 28 * mm, 26 * mm, 20 * mm, 26 * mm]
     return [_p(intro, "small"),
             freeze_table(rel).to_pdf(w + [_TEXT_W - sum(w)])]
