@@ -432,7 +432,7 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
             "refits": refits["refits"], "refits_used": refits["refits_used"],
             "subsample_size": refits["subsample_size"],
             "design_rows_per_refit": max(64, n_base // 2),
-            "in_interval": enough},
+            "enough_refits": enough},
         "n_base": int(n_base),
         "n_folds": int(n_folds),
         "thresholds": {"total_upper_below": TOTAL_EFFECT_FREEZE,
