@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import time
-
 import numpy as np
 import pytest
 from scipy import linalg
@@ -11,7 +9,6 @@ from scipy.optimize import approx_fprime
 from scipy.stats import norm
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
-from threadpoolctl import threadpool_limits
 
 from advisor.surrogates import make_surrogate
 from advisor.surrogates import gp as gp_module
@@ -252,35 +249,5 @@ def test_fitc_approximation_close_to_exact_and_bounded_memory(monkeypatch):
     assert draws.shape == (2, 5)
 
 
-@pytest.mark.slow
-def test_large_log_is_fast():
-    X, y = _data(5000, d=20, noise=0.1, seed=15)
-    t0 = time.perf_counter()
-    model = MaternGP(seed=0).fit(X, y)
-    model.predict(X[:100])
-    # "a few tens of seconds at most" (requirement); measured ~5 s on 2 shared cores
-    assert time.perf_counter() - t0 < 60
-    assert model.info_["m"] == gp_module.SUBSET_SIZE[False]
-
-
-@pytest.mark.slow
-def test_exact_likelihood_cost_scales_cubically():
-    # sizes 400, 800, 1600 (d=5); three evaluations each, best of three repeats, one BLAS
-    # thread.  Cholesky and inverse are O(n^3) [RW2006, §2.2 and Alg. 2.1 notes]; the
-    # O(n^2 d) kernel terms pull the exponent below 3 at the small end.
-    sizes = [400, 800, 1600]
-    costs = []
-    theta = np.log(np.r_[np.ones(5), 1.0, 0.1])
-    with threadpool_limits(1):
-        for n in sizes:
-            X, y = _data(n, d=5, seed=16)
-            best = np.inf
-            for _ in range(3):
-                t0 = time.perf_counter()
-                for _ in range(3):
-                    negative_log_marginal_likelihood(theta, X, y)
-                best = min(best, time.perf_counter() - t0)
-            costs.append(best)
-    slope = np.polyfit(np.log(sizes), np.log(costs), 1)[0]
-    # band around 3: timing on a shared machine is noisy (common practice)
-    assert 2.3 <= slope <= 3.5, (costs, slope)
+# The wall-clock checks (a 5,000 x 20 log in under a minute; the exact likelihood's
+# n^3 cost) are figures in benchmarks/cost_exponents.py: no timed assertions here.

@@ -5,9 +5,11 @@ Four questions a team settles before a campaign, each answered from the logged t
 and a chosen surrogate:
 
 * :func:`parameter_relevance` -- first-order and total Sobol indices of the surrogate's
-  mean, cross-checked by held-out permutation importance and (for a GP) the fitted
-  length scales; parameters with a negligible total effect are flagged as candidates to
-  freeze at their best logged value.
+  mean, with intervals from refits of the surrogate on half-samples of the trials (the
+  model's uncertainty, not only Monte-Carlo error), cross-checked by held-out
+  permutation importance and (for a GP) the fitted length scales; parameters whose
+  effect is shown to be small are flagged as candidates to freeze at their best logged
+  value.
 * :func:`propose_batch` -- the first ``K`` settings of the next campaign, chosen by the
   surrogate and an acquisition setting from all logged trials, with predicted mean and
   90% interval, as a table with the log's own columns; the batch differs by
@@ -32,6 +34,11 @@ References
 .. [SOB2001] Sobol', I. M. (2001). Global sensitivity indices for nonlinear mathematical
    models and their Monte Carlo estimates. Mathematics and Computers in Simulation 55,
    271-280.
+.. [SW1989] Shao, J. & Wu, C. F. J. (1989). A general theory for jackknife variance
+   estimation. Annals of Statistics 17, 1176-1197 (the delete-d jackknife; from memory).
+.. [WU1990] Wu, C. F. J. (1990). On the asymptotic properties of the jackknife
+   histogram. Annals of Statistics 18, 1438-1452 (the distribution of
+   ``sqrt(r / (n - r)) (theta_r - theta_n)`` over subsamples of size r; from memory).
 .. [BRE2001] Breiman, L. (2001). Random forests. Machine Learning 45, 5-32 (Sec. 10,
    variable importance by permuting a variable in the out-of-bag data).
 .. [FRD2019] Fisher, A., Rudin, C. & Dominici, F. (2019). All models are wrong, but many

@@ -42,6 +42,56 @@ def _power_law_at(sizes, seconds, target) -> float | None:
     return float(math.exp(icpt + slope * math.log(target)))
 
 
+def _size_regimes(model) -> list[tuple[str, int | None]]:
+    """The model's size regimes (``size_regimes()``, e.g. the GP's exact / starts on a
+    subset / FITC), or one regime for a model that declares none."""
+    fn = getattr(model, "size_regimes", None)
+    regimes = list(fn()) if callable(fn) else []
+    return regimes or [("one regime", None)]
+
+
+def _regime_index(regimes, m: int) -> int:
+    for i, (_, upper) in enumerate(regimes):
+        if upper is None or m <= upper:
+            return i
+    return len(regimes) - 1
+
+
+def _sizes_for_target(sizes, regimes, target) -> list[int]:
+    """``sizes`` plus what the projection needs: two distinct sizes inside the regime
+    of ``target`` (its lower edge + 1 and ``target`` itself, as available), so that
+    the power law is never fitted across a switch of regime (issue 13)."""
+    r = _regime_index(regimes, target)
+    inside = {m for m in sizes if _regime_index(regimes, m) == r}
+    lower = (regimes[r - 1][1] + 1) if r > 0 else 2
+    for extra in (target, lower):
+        if len(inside) >= 2:
+            break
+        if extra >= 2:
+            inside.add(int(extra))
+    return sorted(set(sizes) | inside)
+
+
+def _per_regime(regimes, sizes, fit_s, pred_s):
+    """One power law per regime: ``[{"name", "up_to", "sizes", "fit_seconds_exponent",
+    "predict_seconds_exponent"}]`` for each regime that holds a measured size (an
+    exponent needs two distinct sizes; a negative one is shown as None)."""
+    out = []
+    idx = np.array([_regime_index(regimes, m) for m in sizes])
+    for r, (name, upper) in enumerate(regimes):
+        sel = np.flatnonzero(idx == r)
+        if not len(sel):
+            continue
+        ns = [sizes[k] for k in sel]
+        ef = scaling_exponent(ns, [fit_s[k] for k in sel])
+        ep = scaling_exponent(ns, [pred_s[k] for k in sel])
+        out.append({"name": name, "up_to": upper, "sizes": ns,
+                    "fit_seconds_exponent": ef if ef is None or ef >= 0 else None,
+                    "predict_seconds_exponent": ep if ep is None or ep >= 0 else None,
+                    "fit_seconds_exponent_raw": ef, "predict_seconds_exponent_raw": ep})
+    return out
+
+
 def _resampled(X, y, m, rng, bounds):
     """``m`` rows: a subsample when ``m <= n``, else all rows plus bootstrap copies with
     a tiny jitter (1e-3 of each encoded range, 1e-3 of the objective's std) so that no
@@ -99,9 +149,16 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
     ``n/2``, ``n``, and outside quick mode also ``min(n + budget, 2n)`` by bootstrap
     rows with tiny jitter) and predict at ``n_predict`` random settings (one
     acquisition sweep); the minimum over ``repeats`` runs is kept.  A power law
-    ``t = c n^b`` is fitted by least squares on log-log axes (:func:`scaling_exponent`),
-    and the time per iteration (one refit plus one prediction sweep) is projected at
-    the next campaign's size ``n + budget``.  Timings always run serially in this
+    ``t = c n^b`` is fitted by least squares on log-log axes (:func:`scaling_exponent`)
+    *within each size regime* of the model (``size_regimes()``: for the GP the exact
+    fit, the exact fit with its starts on a subset, and FITC beyond the exact limit; a
+    model that declares none has one regime), and the time per iteration (one refit
+    plus one prediction sweep) is projected at the next campaign's size ``n + budget``
+    from the power law of the regime that size falls in.  With the default sizes, when
+    fewer than two of them fall in that regime, its lower edge + 1 and the projected
+    size itself are timed too, so no power law spans a change of regime.  The reported
+    ``fit_seconds_exponent`` / ``predict_seconds_exponent`` are those of the projected
+    size's regime; every regime's are under ``regimes``.  Timings always run serially in this
     process: parallel workers share cores and would distort them.
 
     ``clock`` is the wall clock by default (what a team waits for); pass
@@ -119,13 +176,16 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
         ``{"logged_trials", "budget", "projected_size", "predict_points",
         "max_fit_seconds", "method", "surrogates": {name: {"sizes", "fit_seconds",
         "predict_seconds", "fit_seconds_exponent", "predict_seconds_exponent",
-        "projected_size", "projected_seconds_per_iteration", "over_max_fit_seconds", "error"}}}``.
+        "fit_seconds_exponent_raw", "predict_seconds_exponent_raw",
+        "seconds_exponent_note", "regimes", "projection_regime", "projected_size",
+        "projected_seconds_per_iteration", "over_max_fit_seconds", "error"}}}``.
     """
     _check_trials(trials)
     if int(budget) < 0:
         raise UsageError(f"budget={budget} must be zero or more trials", fix="pass budget >= 0")
     n = trials.n_used
     target = n + int(budget)
+    default_sizes = sizes is None
     if sizes is None:
         sizes = {max(_MIN_TRAIN, n // 4), max(_MIN_TRAIN, n // 2), n}
         if not quick and target > n:
@@ -134,22 +194,43 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
     repeats = int(repeats or (1 if quick else 3))
     out = {}
     for name in surrogate_names:
-        encoding = _encoding(make(name, seed=0, quick=quick))
+        probe = make(name, seed=0, quick=quick)
+        encoding = _encoding(probe)
+        regimes = _size_regimes(probe)
         X, y = trials.features(encoding), trials.y
-        entry = {"sizes": sizes, "projected_size": target, "error": None}
+        own = _sizes_for_target(sizes, regimes, target) if default_sizes else list(sizes)
+        r_target = _regime_index(regimes, target)
+        entry = {"sizes": own, "projected_size": target, "error": None,
+                 "projection_regime": regimes[r_target][0]}
         try:
             fit_s, pred_s = _time_surrogate(make, name, seed, quick, trials.space, X, y,
-                                            sizes, repeats, n_predict, encoding, clock)
+                                            own, repeats, n_predict, encoding, clock)
         except Exception as exc:  # one model's failure never stops the others
             entry.update(fit_seconds=None, predict_seconds=None, fit_seconds_exponent=None,
                          predict_seconds_exponent=None, projected_seconds_per_iteration=None,
+                         fit_seconds_exponent_raw=None, predict_seconds_exponent_raw=None,
+                         seconds_exponent_note=None, regimes=[],
                          over_max_fit_seconds=False, error=f"{type(exc).__name__}: {exc}")
             out[name] = entry
             continue
-        fit_t = _power_law_at(sizes, fit_s, target)
-        pred_t = _power_law_at(sizes, pred_s, target)
+        # The projection uses the sizes in the target's regime only; with explicit sizes
+        # none of which falls there, the nearest regime's sizes stand in (said in the
+        # note below).
+        in_r = [k for k, m in enumerate(own) if _regime_index(regimes, m) == r_target]
+        use = in_r or [k for k, m in enumerate(own)
+                       if _regime_index(regimes, m) == _regime_index(regimes, max(own))]
+        ns = [own[k] for k in use]
+        fs, ps = [fit_s[k] for k in use], [pred_s[k] for k in use]
+        fit_t, pred_t = _power_law_at(ns, fs, target), _power_law_at(ns, ps, target)
         per_iter = None if fit_t is None or pred_t is None else fit_t + pred_t
-        raw_fit, raw_pred = scaling_exponent(sizes, fit_s), scaling_exponent(sizes, pred_s)
+        raw_fit, raw_pred = scaling_exponent(ns, fs), scaling_exponent(ns, ps)
+        notes = []
+        if not in_r:
+            notes.append(f"no size was timed in the {regimes[r_target][0]} regime of the "
+                         "projected size; projected from the largest timed regime")
+        if any(v is not None and v < 0 for v in (raw_fit, raw_pred)):
+            notes.append("time fell with size on this machine: no growth rate can be "
+                         "read (noise)")
         entry.update(
             fit_seconds=[float(v) for v in fit_s], predict_seconds=[float(v) for v in pred_s],
             # A negative exponent is timing noise or a regime switch (e.g. the exact GP
@@ -158,9 +239,8 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
             fit_seconds_exponent=raw_fit if raw_fit is None or raw_fit >= 0 else None,
             predict_seconds_exponent=raw_pred if raw_pred is None or raw_pred >= 0 else None,
             fit_seconds_exponent_raw=raw_fit, predict_seconds_exponent_raw=raw_pred,
-            seconds_exponent_note=(None if all(v is None or v >= 0 for v in (raw_fit, raw_pred))
-                                   else "time fell with size on this machine: no growth "
-                                        "rate can be read (noise or a change of regime)"),
+            seconds_exponent_note="; ".join(notes) or None,
+            regimes=_per_regime(regimes, own, fit_s, pred_s),
             projected_seconds_per_iteration=per_iter,
             over_max_fit_seconds=bool(max_fit_seconds is not None and per_iter is not None
                             and per_iter > float(max_fit_seconds)))
@@ -170,7 +250,10 @@ def cost_projection(trials, surrogate_names: Sequence[str], *, seed: int,
             "clock": "cpu" if clock is time.process_time else "wall",
             "method": (f"fit and predict ({n_predict} points) timed at sizes "
                        f"{', '.join(map(str, sizes))} (minimum of {repeats} run(s), "
-                       "serial); power law fitted by least squares on log-log axes; "
-                       f"projected at {target} trials (logged + budget); larger sizes "
-                       "than the log by bootstrap rows with tiny jitter"),
+                       "serial; a model with size regimes is also timed inside the "
+                       "regime of the projected size); one power law per regime, fitted "
+                       "by least squares on log-log axes; projected at "
+                       f"{target} trials (logged + budget) from the power law of its "
+                       "regime; larger sizes than the log by bootstrap rows with tiny "
+                       "jitter"),
             "surrogates": out}

@@ -166,6 +166,91 @@ def _sobol_indices(predict_mean: Callable[[np.ndarray], np.ndarray], space: Para
             "total_interval": np.column_stack([lo[d:], hi[d:]]), "variance": variance}
 
 
+def _sobol_point(predict_mean: Callable[[np.ndarray], np.ndarray], space: ParameterSpace,
+                 encoding: str, *, n_base: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+    """Point estimates only (first-order, total) from :func:`scipy.stats.sobol_indices`
+    with its default method, the [SAL2010] Table 2 estimators (b) and (f) (the latter is
+    Jansen's 1999 estimator); no bootstrap.  NaN where the mean is flat (0 / 0)."""
+    dists, to_encoded = _sobol_design(space, encoding)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        res = stats.sobol_indices(
+            func=lambda Z: np.asarray(predict_mean(to_encoded(Z)), dtype=float).ravel(),
+            n=n_base, dists=dists, rng=np.random.default_rng(seed))
+    return (np.atleast_1d(np.asarray(res.first_order, dtype=float)),
+            np.atleast_1d(np.asarray(res.total_order, dtype=float)))
+
+
+def _half_sample_refit(make, name, seed, quick, X, y, space, encoding, n_base):
+    """One refit of the surrogate on a half-sample and the Sobol indices of its mean,
+    each on its own fresh design (so the spread over refits carries the Monte-Carlo
+    error as well as the model's).  Returns ``(first_order, total)``, shapes (d,)."""
+    model = _fit(make, name, task_seed(seed, "fit"), quick, X, y)
+    return _sobol_point(lambda Xe: model.predict(Xe)[0], space, encoding, n_base=n_base,
+                        seed=task_seed(seed, "design"))
+
+
+def _model_uncertainty(make, name, seed, quick, X, y, space, encoding, *, n_refits,
+                       n_base, level, executor):
+    """Sobol indices of the surrogate refitted on ``n_refits`` random half-samples.
+
+    Which resampling, and why (measured, see ``benchmarks/relevance_refit_spread.py``):
+    the model's uncertainty about an index is the spread of the index over data sets
+    the process could have given.  Refits on bootstrap resamples (drawing n rows with
+    replacement) overstate it for a GP: duplicated rows read as noise-free repeats, the
+    fitted noise and length scales shrink and the mean wiggles; on a 4-parameter test
+    function (n = 60) the bootstrap spread of the total index was 1.5-13 times its
+    spread over truly independent data sets, the half-sample spread 0.8-2.2 times.  Posterior function draws of one fitted model would
+    keep its hyperparameters fixed, which is where most of the instability lies on a
+    small log.  Half-samples without replacement avoid both: the delete-d jackknife
+    with d = n/2 ([SW1989]; its histogram [WU1990] rescales ``theta_r - theta_n`` by
+    ``sqrt(r / (n - r))``, which is 1 at r = n/2, so the half-sample values spread like
+    the full-sample estimate itself for smooth statistics; for a GP on half the data
+    they spread somewhat more, which errs toward not freezing).  The interval is the
+    central ``level`` percentile range of the refits' indices.
+
+    Returns ``{"first": (B, d), "total": (B, d), "subsample_size", "refits",
+    "refits_used"}``; refits that fail or whose mean is flat are dropped.
+    """
+    n = len(y)
+    m = max(2, n // 2)
+    rng = np.random.default_rng(task_seed(seed, "relevance", "half-samples"))
+    subsets = [np.sort(rng.permutation(n)[:m]) for _ in range(n_refits)]
+    tasks = [(make, name, task_seed(seed, "relevance", "refit", b), quick, X[idx], y[idx],
+              space, encoding, n_base) for b, idx in enumerate(subsets)]
+    ex = executor or Executor()
+    results = ex.map(_safe_refit, tasks, label="relevance refits")
+    ok = [r for r in results if r is not None
+          and np.all(np.isfinite(r[0])) and np.all(np.isfinite(r[1]))]
+    d = len(space)
+    first = np.array([r[0] for r in ok]).reshape(-1, d)
+    total = np.array([r[1] for r in ok]).reshape(-1, d)
+    return {"first": first, "total": total, "subsample_size": int(m),
+            "refits": int(n_refits), "refits_used": len(ok)}
+
+
+def _safe_refit(*args):
+    try:
+        return _half_sample_refit(*args)
+    except Exception:  # one failed refit is dropped and counted, never fatal
+        return None
+
+
+def _percentile_interval(values, point, mc_interval, level):
+    """Central ``level`` percentile range of ``values`` (refits × d), widened to hold the
+    point estimate and the Monte-Carlo interval (never narrower than before)."""
+    alpha = (1 - level) / 2
+    lo = np.quantile(values, alpha, axis=0)
+    hi = np.quantile(values, 1 - alpha, axis=0)
+    lo = np.minimum(np.minimum(lo, point), mc_interval[:, 0])
+    hi = np.maximum(np.maximum(hi, point), mc_interval[:, 1])
+    return np.column_stack([lo, hi])
+
+
+#: Fewest successful half-sample refits for the model-uncertainty interval; with fewer
+#: the freeze rule has no interval to decide on and flags nothing.
+_MIN_REFITS = 10
+
+
 def _permutation_fold(make, name, seed, quick, X, y, train, test, blocks, n_repeats):
     """Held-out permutation importance of each parameter on one fold ([BRE2001] Sec. 10,
     on a held-out fold instead of out-of-bag rows; [FRD2019] Eq. 3.3 as a difference).
@@ -219,6 +304,7 @@ def _relative(scales, space, encoding, blocks) -> list[float | None]:
 def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool = False,
                         make: Callable = make_surrogate, n_base: int | None = None,
                         n_folds: int | None = None, n_repeats: int | None = None,
+                        n_refits: int | None = None,
                         executor: Executor | None = None) -> dict:
     """How much each parameter matters, as the fitted surrogate reads the logs.
 
@@ -226,8 +312,14 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
        ``ST_i`` Sobol indices [SOB2001] of its predictive *mean* are estimated over the
        whole space with the [SAL2010] design and estimators (``scipy.stats.sobol_indices``,
        ``n_base * (d + 2)`` predictions), every setting equally likely (uniform, log10
-       uniform on log scales, discrete uniform over integers and levels), with 95% BCa
-       bootstrap intervals.
+       uniform on log scales, discrete uniform over integers and levels).  Their 95%
+       intervals carry the model's uncertainty: the surrogate is refitted on
+       ``n_refits`` random half-samples of the trials (delete-n/2 jackknife [SW1989],
+       [WU1990]; why half-samples rather than bootstrap resamples or posterior draws:
+       :func:`_model_uncertainty`), the indices of each refit are estimated on a fresh
+       design of ``n_base / 2`` rows, and the interval is the central 95% of the refits'
+       values, widened to hold the point estimate and its Monte-Carlo (BCa bootstrap
+       over design rows) interval, which is kept as ``total_interval_monte_carlo``.
     2. Cross-check: permutation importance on held-out folds ([BRE2001], [FRD2019]):
        the increase in held-out mean squared error when one parameter's column(s) are
        permuted among the held-out rows (a one-hot block as a whole), as a share of
@@ -237,13 +329,15 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
        parameter ([RW2006] Sec. 5.1; raw encoded units, the shortest of a one-hot
        block) and the same divided by the parameter's encoded range.
 
-    A parameter is flagged ``freeze`` when the upper end of its ``ST`` interval is below
+    A parameter is flagged ``freeze`` when the upper end of its ``ST`` interval (the
+    refit interval above) is below
     ``TOTAL_EFFECT_FREEZE`` (0.05) *and* the upper end of its permutation interval is
     below ``PERMUTATION_FREEZE`` (0.10, the same effect on the MSE scale; formerly the
     lower end was compared with 0.01: not significantly above 1% of the
     objective's variance); its
     ``freeze_value`` is its value at the best successful trial.  When the surrogate's
-    mean is flat (zero variance) nothing is flagged: there is no evidence either way.
+    mean is flat (zero variance), or fewer than 10 refits succeed, nothing is flagged:
+    there is no evidence either way.
 
     Parameters
     ----------
@@ -252,28 +346,32 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
     seed : int
     quick : bool
         Smaller design (``n_base`` 512 instead of 2048, 3 folds instead of 5, 5
-        permutation repeats instead of 10, 499 bootstrap resamples instead of 999).
+        permutation repeats instead of 10, 499 bootstrap resamples instead of 999, 20
+        half-sample refits instead of 40).
     make : callable
         ``make(name, seed=..., quick=...)`` → unfitted surrogate.
     n_base : int, optional
         Rows of each Sobol design matrix; a power of 2.
     n_folds, n_repeats : int, optional
+    n_refits : int, optional
+        Half-sample refits behind the Sobol intervals.
     executor : Executor, optional
-        Runs the permutation folds.
+        Runs the permutation folds and the refits.
 
     Returns
     -------
     dict
         ``{"surrogate", "parameters": [{"name", "first_order", "first_order_interval",
-        "total", "total_interval", "permutation_importance", "permutation_interval",
-        "length_scale", "length_scale_relative", "freeze", "freeze_value", "evidence"}],
-        "model_mean_variance",
+        "total", "total_interval", "total_interval_monte_carlo", "permutation_importance",
+        "permutation_interval", "length_scale", "length_scale_relative", "freeze",
+        "freeze_value", "evidence"}], "model_mean_variance", "model_uncertainty",
         "n_base", "n_folds", "thresholds", "method", "caution"}``.
     """
     _check_trials(trials)
     n_base = n_base or (512 if quick else 2048)
     n_folds = n_folds or (3 if quick else 5)
     n_repeats = n_repeats or (5 if quick else 10)
+    n_refits = n_refits or (20 if quick else 40)
     space = trials.space
     y = trials.y
     model, encoding = _fit_all(make, surrogate_name, task_seed(seed, "relevance", "all"),
@@ -283,6 +381,17 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
 
     sob = _sobol_indices(lambda Xe: model.predict(Xe)[0], space, encoding, n_base=n_base,
                          seed=task_seed(seed, "sobol"), n_resamples=499 if quick else 999)
+
+    refits = _model_uncertainty(make, surrogate_name, seed, quick, X, y, space, encoding,
+                                n_refits=n_refits, n_base=max(64, n_base // 2),
+                                level=_INTERVAL_LEVEL, executor=executor)
+    enough = refits["refits_used"] >= _MIN_REFITS
+    mc_total, mc_first = sob["total_interval"], sob["first_interval"]
+    if enough:
+        sob["total_interval"] = _percentile_interval(refits["total"], sob["total"],
+                                                     mc_total, _INTERVAL_LEVEL)
+        sob["first_interval"] = _percentile_interval(refits["first"], sob["first_order"],
+                                                     mc_first, _INTERVAL_LEVEL)
 
     perm, perm_lo, perm_hi = _permutation_importance(
         make, surrogate_name, seed, quick, X, y, blocks, n_folds, n_repeats, executor)
@@ -296,7 +405,7 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
         t_hi = float(sob["total_interval"][i, 1])
         # Positive evidence that the effect is small, for both measures: each upper
         # bound below its margin (issue 13; formerly only "not significantly above").
-        freeze = bool((not flat) and t_hi < TOTAL_EFFECT_FREEZE
+        freeze = bool((not flat) and enough and t_hi < TOTAL_EFFECT_FREEZE
                       and perm_hi[i] < PERMUTATION_FREEZE)
         rows.append({
             "name": p.name,
@@ -304,18 +413,26 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
             "first_order_interval": [_fnum(v) for v in sob["first_interval"][i]],
             "total": _fnum(sob["total"][i]),
             "total_interval": [_fnum(v) for v in sob["total_interval"][i]],
+            "total_interval_monte_carlo": [_fnum(v) for v in mc_total[i]],
             "permutation_importance": _fnum(perm[i]),
             "permutation_interval": [_fnum(perm_lo[i]), _fnum(perm_hi[i])],
             "length_scale": scales[i],
             "length_scale_relative": rel_scales[i],
             "freeze": freeze,
             "freeze_value": _plain(best[p.name]) if freeze else None,
-            "evidence": _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat),
+            "evidence": _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat,
+                                  enough),
         })
     return {
         "surrogate": surrogate_name,
         "parameters": rows,
         "model_mean_variance": _fnum(sob["variance"]),
+        "model_uncertainty": {
+            "method": "half-sample refits",
+            "refits": refits["refits"], "refits_used": refits["refits_used"],
+            "subsample_size": refits["subsample_size"],
+            "design_rows_per_refit": max(64, n_base // 2),
+            "enough_refits": enough},
         "n_base": int(n_base),
         "n_folds": int(n_folds),
         "thresholds": {"total_upper_below": TOTAL_EFFECT_FREEZE,
@@ -325,7 +442,11 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
         "method": (
             f"Sobol' first-order and total indices of the {surrogate_name} surrogate's "
             f"mean over the whole space (Saltelli et al. 2010 estimators, {n_base} base "
-            f"rows, every setting equally likely), 95% BCa bootstrap intervals; "
+            f"rows, every setting equally likely); 95% intervals from {n_refits} refits "
+            f"of the model on random halves of the trials ({refits['refits_used']} "
+            "succeeded), so they carry the model's uncertainty as well as the Monte-"
+            "Carlo error (never narrower than the BCa bootstrap interval over design "
+            "rows); "
             f"cross-checked by held-out permutation importance ({n_folds} folds, "
             f"{n_repeats} permutations each; increase in held-out MSE as a share of the "
             "objective's variance, 95% t-interval over folds)"
@@ -334,9 +455,9 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
             + f". A parameter is a candidate to freeze when the upper end of its total-"
             f"index interval is below {TOTAL_EFFECT_FREEZE} and the upper end of its "
             f"permutation-importance interval is below {PERMUTATION_FREEZE} of the "
-            "variance (positive evidence of a small effect on both scales). The Sobol "
-            "interval covers the Monte-Carlo error of the one fitted model only, not "
-            "the model's own uncertainty."),
+            "variance (positive evidence of a small effect on both scales)"
+            + ("." if enough else f"; fewer than {_MIN_REFITS} refits succeeded, so no "
+               "parameter is judged.")),
         "caution": RELEVANCE_CAUTION,
     }
 
@@ -359,7 +480,7 @@ def _permutation_importance(make, name, seed, quick, X, y, blocks, n_folds, n_re
     return mean, mean - half, mean + half
 
 
-def _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat) -> str:
+def _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat, enough=True) -> str:
     t, (t_lo, t_hi) = sob["total"][i], sob["total_interval"][i]
     text = (f"total effect {t:.3f} (95% interval {t_lo:.3f} to {t_hi:.3f}), first-order "
             f"{sob['first_order'][i]:.3f}; held-out permutation importance {perm[i]:.3f} "
@@ -368,15 +489,18 @@ def _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat) -> str:
         text += f"; GP length scale {scales[i]:.3g} (encoded units)"
     if flat:
         return text + "; the model's mean is flat, so no parameter can be judged"
+    if not enough:
+        return text + ("; too few refits succeeded to bound the model's uncertainty, so "
+                       "no parameter is judged")
     if freeze:
         return text + ("; negligible by both measures: a candidate to freeze at its value "
                        "in the best logged trial")
     reasons = []
     if not t_hi < TOTAL_EFFECT_FREEZE:
         reasons.append(f"total-effect interval reaches {TOTAL_EFFECT_FREEZE} or more")
-    if perm_lo[i] > PERMUTATION_FREEZE:
-        reasons.append(f"permutation importance significantly above {PERMUTATION_FREEZE} "
-                       "of the variance")
+    if not perm_hi[i] < PERMUTATION_FREEZE:
+        reasons.append(f"permutation-importance interval reaches {PERMUTATION_FREEZE} "
+                       "or more")
     return text + "; keep tuning: " + " and ".join(reasons)
 
 

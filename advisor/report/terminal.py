@@ -118,11 +118,13 @@ def _print_plan(con, d) -> None:
     frozen = [p for p in rel.get("parameters") or [] if p.get("freeze")]
     if rel:
         if frozen:
-            con.print("  - candidates to freeze at their best logged value (negligible total "
-                      "effect in the logged region): "
+            con.print("  - candidates to freeze at their best logged value (total effect and "
+                      "permutation importance both bounded below their margins, the model's "
+                      "uncertainty included, in the logged region): "
                       + ", ".join(f"{p['name']}={p['freeze_value']}" for p in frozen))
         else:
-            con.print("  - every parameter has a noticeable effect; none is suggested for freezing")
+            con.print("  - no parameter is shown to have a small effect (an interval's upper "
+                      "end reaches its margin); none is suggested for freezing")
     lc = plan.get("learning_curve") or {}
     if lc.get("reading"):
         con.print(f"  - learning curve: {escape(lc['reading'])}")

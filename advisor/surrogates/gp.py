@@ -291,6 +291,22 @@ class MaternGP(ScaledSurrogate):
         self.restart_size = restart_size
         self.blas_threads = blas_threads
 
+    def size_regimes(self):
+        """Training-set sizes at which the fitting procedure changes, for cost models
+        (``planning.cost_projection`` fits one power law per regime): a list of
+        ``(name, largest n in the regime or None for no limit)`` in increasing order.
+        Exact GP with every start on all points up to ``restart_size``; exact GP with
+        the starts on a subset and one polish up to the exact limit; FITC beyond it."""
+        max_exact = (MAX_EXACT[bool(self.quick)] if self.max_exact is None
+                     else int(self.max_exact))
+        regimes = []
+        if self.optimize and int(self.restart_size) < max_exact:
+            regimes += [("exact", int(self.restart_size)),
+                        ("exact, starts on a subset", max_exact)]
+        else:
+            regimes.append(("exact", max_exact))
+        return regimes + [("FITC", None)]
+
     # -- scaling ------------------------------------------------------------------
     def _scale_fit(self, X, y):
         if self.normalize:

@@ -43,6 +43,10 @@ class WarpedGP(EstimatorMixin):
         self.quick = quick
         self.warp = warp
 
+    def size_regimes(self):
+        """Those of the GP it fits (for the cost projection's per-regime power laws)."""
+        return MaternGP(seed=self.seed, quick=self.quick).size_regimes()
+
     def fit(self, X, y):
         X, y = check_fit_inputs(X, y)
         if self.warp == "auto":

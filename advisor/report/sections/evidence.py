@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from reportlab.lib import colors
 from reportlab.lib.units import mm
-from reportlab.platypus import CondPageBreak, Paragraph, Spacer
+from reportlab.platypus import CondPageBreak, KeepTogether, Paragraph, Spacer
 
 from ._base import (_S, _TEXT_W, FigureSpec, TableData, _cells, _e, _figure_block, _finite,
                     _heading, _image, _name, _num, _p, _pct, _side_by_side, _table, _View)
@@ -94,6 +94,70 @@ def metrics_table(v: _View, cols=None) -> TableData:
     return TableData(rows, spans=spans, extra=extra)
 
 
+#: Rank metrics whose spread over folds the ties table shows (key, label).
+FOLD_SPREAD_COLUMNS = [("spearman", "Spearman"), ("top_hit_rate", "top-3 hit")]
+
+
+def _mean_sd(e, key) -> str:
+    m = (e.get("metrics") or {}).get(key)
+    spread = e.get("metrics_fold_spread") or {}
+    sd, k = spread.get(f"{key}_fold_sd"), spread.get(f"{key}_folds")
+    text = _num(m)
+    if _finite(sd):
+        text += f" ± {_num(sd, 2)}"
+    if _finite(k):
+        text += f"<br/><font size=5.8 color='#555555'>{int(k)} folds</font>"
+    return text
+
+
+def ties_table(v: _View) -> TableData:
+    """Each working model against the leader: the CRPS difference with its block-
+    bootstrap interval, P(best) from the same resampling, the model confidence set's
+    p-value and membership, and the rank metrics' mean ± sd over folds."""
+    rows = [["rank / surrogate", "CRPS − leader (95% interval)", "P(best)",
+             "MCS p-value", "in the 95% set"]
+            + [f"{lab} (mean ± sd over folds)" for _, lab in FOLD_SPREAD_COLUMNS]]
+    leader = (v.d.get("recommendation") or {}).get("surrogate")
+    for e in v.ranking:
+        if e.get("status") != "ok":
+            continue
+        c = e.get("comparison") or {}
+        diff = _num(c.get("crps_diff"))
+        if e["surrogate"] == leader:
+            diff = "leader"
+        elif _finite(c.get("crps_diff_low")) and _finite(c.get("crps_diff_high")):
+            diff += (f"<br/><font size=5.8 color='#555555'>{_num(c['crps_diff_low'])} – "
+                     f"{_num(c['crps_diff_high'])}</font>")
+        in_set = c.get("in_mcs", c.get("tied_with_leader"))
+        rows.append([f"{e.get('rank', '')}. {_name(e['surrogate'])}", diff,
+                     _num(c.get("p_best"), 2), _num(c.get("mcs_pvalue"), 2),
+                     "<b>yes</b>" if in_set else "no"]
+                    + [_mean_sd(e, k) for k, _ in FOLD_SPREAD_COLUMNS])
+    return TableData(rows)
+
+
+def ties_intro(v: _View) -> str:
+    """The level and the block structure behind the ties table (paragraph markup)."""
+    val = v.d.get("validation") or {}
+    blocks = val.get("ranking_blocks") or {}
+    inp = v.d.get("input") or {}
+    level = blocks.get("level", 0.05)
+    n_blocks = blocks.get("n_blocks")
+    by_campaign = bool(inp.get("campaign")) and len(v.d.get("campaigns") or []) >= 2
+    unit = ("campaign × fold cells" if by_campaign else
+            "runs of consecutive held-out trials, four per fold")
+    strat = (", stratified by fold," if blocks.get("stratified_by_fold") else "")
+    return (f"Ties are decided by a {100 * (1 - float(level)):.0f}% model confidence set "
+            f"(Hansen, Lunde &amp; Nason 2011): a model is tied with the leader when its "
+            f"p-value is at least {_num(level)}. Held-out errors are correlated within a "
+            f"campaign and a fold, so the unit of resampling is the block: "
+            f"{_num(n_blocks) if _finite(n_blocks) else 'n/a'} blocks ({unit}). The CRPS "
+            f"interval and P(best) come from a block bootstrap{strat} with the leader "
+            "re-selected in every replicate; Spearman and top-3 hit are averaged within "
+            "folds (± their standard deviation over folds). The README states the measured "
+            "error rates of these calls.")
+
+
 def _metrics_table(v: _View, cols, first_w: float):
     w = (_TEXT_W - first_w) / len(cols)
     return metrics_table(v, cols).to_pdf([first_w] + [w] * len(cols))
@@ -167,6 +231,13 @@ def story(v: _View) -> list:
     story.append(_p("Lower is better for NLL, CRPS, calibration error and sharpness; "
                     "higher for the rank correlations and the top-region scores; seconds are "
                     "the mean per fold on this machine (they vary between runs).", "small"))
+    if v.ok:  # heading, the rule and its table stay on one page
+        w = [38 * mm, 34 * mm, 16 * mm, 18 * mm, 18 * mm]
+        rest = (_TEXT_W - sum(w)) / len(FOLD_SPREAD_COLUMNS)
+        story.append(KeepTogether([
+            Paragraph("Ties and the chance of being best", _S["h2"]),
+            _p(ties_intro(v), "small"),
+            ties_table(v).to_pdf(w + [rest] * len(FOLD_SPREAD_COLUMNS))]))
     story.append(Paragraph("How each model was fitted", _S["h2"]))
     story += _model_notes(v)
     if not v.ok:

@@ -7,8 +7,8 @@ from __future__ import annotations
 from reportlab.lib.units import mm
 from reportlab.platypus import KeepTogether, Paragraph, Spacer
 
-from ._base import (FigureSpec, CAUTION, _RULE, _S, _TEXT_W, _View, _box, _cells, _e,
-                    _heading, _image, _name, _num, _p, _side_by_side, _table)
+from ._base import (FigureSpec, CAUTION, _RULE, _S, _TEXT_W, TableData, _View, _box, _cells,
+                    _e, _finite, _heading, _image, _name, _num, _p, _side_by_side, _table)
 
 # ======================================================================================
 # 5. next campaign
@@ -117,18 +117,63 @@ def _best_logged(v: _View):
         return None
 
 
+def _interval(iv, margin=None) -> str:
+    """``low – high``; the upper end in bold when it reaches the margin (it blocked)."""
+    if not iv or not all(_finite(x) for x in iv):
+        return "–"
+    hi = f"{float(iv[1]):.3f}"  # shares of variance: fixed decimals compare at a glance
+    if _finite(margin) and not float(iv[1]) < float(margin):
+        hi = f"<b>{hi}</b>"
+    return f"{float(iv[0]):.3f} – {hi}"
+
+
+def freeze_table(rel) -> TableData:
+    """Every parameter with the intervals that decided its freeze flag: the total Sobol
+    index with its refit interval (the model's uncertainty) and, beside it, the
+    Monte-Carlo interval of the one fitted model; the permutation importance with its
+    interval; the decision.  An upper end at or above its margin is in bold."""
+    thr = rel.get("thresholds") or {}
+    t_m, p_m = thr.get("total_upper_below"), thr.get("permutation_upper_below")
+    rows = [["parameter", "total ST", "95% interval (refits)", "Monte-Carlo only",
+             "permutation", "95% interval", "decision"]]
+    for r in rel.get("parameters") or []:
+        if r.get("freeze"):
+            decision = f"freeze at {_e(_fmt_setting(r.get('freeze_value')))}"
+        else:
+            why = []
+            t_iv, p_iv = r.get("total_interval") or [], r.get("permutation_interval") or []
+            if len(t_iv) == 2 and _finite(t_iv[1]) and _finite(t_m) and t_iv[1] >= t_m:
+                why.append("total")
+            if len(p_iv) == 2 and _finite(p_iv[1]) and _finite(p_m) and p_iv[1] >= p_m:
+                why.append("permutation")
+            decision = ("keep tuning (" + " and ".join(why) + ")") if why else "not judged"
+        rows.append([_e(r.get("name")), f"{r['total']:.3f}" if _finite(r.get("total")) else "n/a",
+                     _interval(r.get("total_interval"), t_m),
+                     _interval(r.get("total_interval_monte_carlo")),
+                     (f"{r['permutation_importance']:.3f}"
+                      if _finite(r.get("permutation_importance")) else "n/a"),
+                     _interval(r.get("permutation_interval"), p_m), decision])
+    return TableData(rows)
+
+
 def _freeze_block(rel) -> list:
-    frozen = [r for r in rel.get("parameters") or [] if r.get("freeze")]
-    if not frozen:
-        return [_p("No parameter is a freeze candidate: each has a total effect that "
-                   "cannot be ruled below the threshold, or a clear permutation importance.",
-                   "small")]
-    rows = [_cells(["parameter", "freeze at (best logged)", "evidence"], "cellhead")]
-    for r in frozen:
-        rows.append(_cells([_e(r.get("name")), _e(r.get("freeze_value")),
-                            _e(r.get("evidence", ""))]))
-    return [_p(f"{len(frozen)} freeze candidate(s):", "small"),
-            _table(rows, [38 * mm, 30 * mm, _TEXT_W - 68 * mm])]
+    thr = rel.get("thresholds") or {}
+    mu = rel.get("model_uncertainty") or {}
+    n_frozen = sum(1 for r in rel.get("parameters") or [] if r.get("freeze"))
+    refits = (f"{mu.get('refits_used')} refits of the model on random halves of the "
+              f"trials ({mu.get('subsample_size')} trials each)" if mu else
+              "refits of the model on random halves of the trials")
+    intro = (f"<b>Freeze rule.</b> A parameter is a candidate to freeze only when the upper "
+             f"end of its total-index interval is below {_num(thr.get('total_upper_below'))} "
+             f"and the upper end of its permutation-importance interval is below "
+             f"{_num(thr.get('permutation_upper_below'))} of the objective's variance. The "
+             f"total-index interval comes from {refits}, so it carries the model's own "
+             "uncertainty; the Monte-Carlo interval of the one fitted model is shown beside "
+             "it for comparison. Bold: an upper end that reached its margin and blocked the "
+             f"freeze. Freeze candidates: {n_frozen}.")
+    w = [34 * mm, 16 * mm, 28 * mm, 26 * mm, 20 * mm, 26 * mm]
+    return [_p(intro, "small"),
+            freeze_table(rel).to_pdf(w + [_TEXT_W - sum(w)])]
 
 
 def _proposal_tables(v: _View, props) -> list:
@@ -162,18 +207,25 @@ def _fmt_setting(x) -> str:
 
 
 def _cost_table(cost) -> list:
-    rows = [_cells(["surrogate", "fit s at log size", "exponent b (t ∝ n^b)",
+    rows = [_cells(["surrogate", "fit s at log size", "regime of the projection",
+                    "exponent b (t ∝ n^b) in it",
                     f"projected s / iteration at {cost.get('projected_size', '?')}",
                     "over limit"], "cellhead")]
     for n, e in (cost.get("surrogates") or {}).items():
         if e.get("error"):
-            rows.append(_cells([_name(n), f"<i>error</i>: {_e(e['error'])}", "", "", ""]))
+            rows.append(_cells([_name(n), f"<i>error</i>: {_e(e['error'])}", "", "", "", ""]))
             continue
-        fit = (e.get("fit_seconds") or [None])[-1]
-        rows.append(_cells([_name(n), _num(fit), _num(e.get("fit_seconds_exponent")),
+        sizes, fits = e.get("sizes") or [], e.get("fit_seconds") or []
+        at_log = dict(zip(sizes, fits)).get(cost.get("logged_trials"), (fits or [None])[-1])
+        rows.append(_cells([_name(n), _num(at_log), _e(e.get("projection_regime") or "–"),
+                            _num(e.get("fit_seconds_exponent")),
                             _num(e.get("projected_seconds_per_iteration")),
                             "yes" if e.get("over_max_fit_seconds") else "no"]))
-    return [_table(rows, [45 * mm, 28 * mm, 32 * mm, 45 * mm, _TEXT_W - 150 * mm]),
-            _p("Timings were measured on this machine and differ between runs.", "small")]
+    return [_table(rows, [38 * mm, 22 * mm, 38 * mm, 26 * mm, 36 * mm, _TEXT_W - 160 * mm]),
+            _p("Timings were measured on this machine and differ between runs. One power "
+               "law is fitted per size regime of the model (for the GP: the exact fit, the "
+               "exact fit with its starts on a subset, FITC beyond the exact limit), and the "
+               "projection uses only the law of the regime the projected size falls in; a "
+               "negative exponent is shown as n/a, never as a growth rate.", "small")]
 
 

@@ -19,12 +19,15 @@ _ACQ_WORDS = {"ei": "expected improvement", "pi": "probability of improvement",
               "ucb": "a confidence bound", "lcb": "a confidence bound",
               "thompson": "Thompson sampling", "random": "random search"}
 _CONFIDENCE_WORDS = {
-    "high": "High. No other working model is statistically tied with it on held-out "
-            "CRPS, and it scored best in at least 90% of bootstrap replicates.",
-    "moderate": "Moderate. It leads, but either another model is close (tied on "
-                "held-out CRPS) or its lead held in fewer than 90% of bootstrap replicates.",
-    "low": "Low. Another model is statistically tied with it, or it misses a guard rail "
-           "on coverage or ordering; treat it as one reasonable choice among several.",
+    "high": "High. Every other working model is outside the 95% model confidence set on "
+            "held-out CRPS (largest rival p-value below 0.05). In seeded simulations of "
+            "equally good models this word was said in at most about 5% of runs (README).",
+    "moderate": "Moderate. It leads, but another model is still in the 95% model "
+                "confidence set (largest rival p-value from 0.05 to 0.20); equally good "
+                "models got this word or 'high' in about 20% of simulated runs.",
+    "low": "Low. Another model is statistically tied with it (p-value 0.20 or more), or it "
+           "misses a guard rail on coverage or ordering, or a tie-breaker put it ahead; "
+           "treat it as one reasonable choice among several.",
     "none": "None. No surrogate produced usable predictions on every fold.",
 }
 
@@ -110,11 +113,15 @@ def runner_up_text(v: _View) -> str:
     diff, lo, hi = c.get("crps_diff"), c.get("crps_diff_low"), c.get("crps_diff_high")
     text = f"<b>Runner-up:</b> {_e(ru)}."
     if _finite(diff):
-        tied = bool(c.get("tied_with_leader"))
-        text += (f" Its mean held-out CRPS is higher by {_num(diff)} (paired bootstrap "
+        tied = bool(c.get("in_mcs", c.get("tied_with_leader")))
+        pv = c.get("mcs_pvalue")
+        ptxt = f"p-value {_num(pv, 2)}, " if _finite(pv) else ""
+        text += (f" Its mean held-out CRPS is higher by {_num(diff)} (block bootstrap "
                  f"95% interval {_num(lo)} to {_num(hi)}); "
-                 + ("the interval contains zero, so the two are statistically tied"
-                    if tied else "the interval excludes zero, so the gap is not noise")
+                 + (f"it is in the 95% model confidence set ({ptxt}so the two are "
+                    "statistically tied)" if tied else
+                    f"it is outside the 95% model confidence set ({ptxt}so the gap is "
+                    "not noise)")
                  + ".")
     lead = v.entry(rec.get("surrogate")) or {}
     pb = (lead.get("comparison") or {}).get("p_best")
