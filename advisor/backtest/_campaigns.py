@@ -30,6 +30,12 @@ every step (``refit_every``) with their quick budget; nothing is carried between
 test functions" practice of e.g. Hennig & Schuler (2012, sec. 4); the candidate-set
 construction is ours.
 
+**Failed trials** (only when ``run_backtest`` is given ``failures``, i.e. the log has a
+model of failure): the stand-ins' candidates fail where that model says, a failed trial
+gives no value, every model-based setting is weighted by P(success) from the run's own
+outcomes and regret counts successful trials only; the rules are in
+:mod:`advisor.backtest._failures`.  Without it nothing changes.
+
 Summaries (per surrogate × setting, and for the baselines), over all runs
 (campaign or stand-in × seed):
 

@@ -185,6 +185,10 @@ def _backtest_line(v: _View) -> str | None:
     if per:
         text += ". Failed picks per run, mean: " + "; ".join(
             f"{k} {m:.1f}" for k, m in list(per.items())[:8])
+        picks = (sim.get("budget") or 0) - (sim.get("n_init") or 0)
+        if share is not None and picks > 0:
+            text += (f" (picks at random would fail {share * picks:.1f} of the {picks} "
+                     "picks on average)")
     return _e(text + ".")
 
 
