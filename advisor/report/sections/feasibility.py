@@ -211,8 +211,8 @@ def story(v: _View) -> list:
              f", {val.get('tested_trials', 'n/a')} tested) by log loss, Brier score and "
              "reliability error; the one with the lowest log loss is chosen, and each "
              "other's difference to it carries a 95% bootstrap interval. "
-             f"Chosen: <b>{_e(_NAMES.get(f['chosen'], f['chosen']))}</b>, which "
-             f"{_e(f.get('evidence'))}.")
+             f"Chosen: <b>{_e(_NAMES.get(f['chosen'], f['chosen']))}</b> "
+             f"({_e(f.get('evidence'))}).")
     table = classifier_table(v).to_pdf([34 * mm, 22 * mm, 14 * mm, 18 * mm, 20 * mm,
                                         34 * mm, 14 * mm, _TEXT_W - 156 * mm])
     out = [KeepTogether(out + [_p(intro), table])]  # the heading travels with the table
