@@ -30,18 +30,24 @@ stand-in gets a failure region as well as an objective:
   are.  We first used the chosen family itself, refitted with the surrogate: a forest
   on the ten or so trials of a run could not learn anything (on the synthetic region of
   ``tests/test_feasibility.py``, seed 0, it wasted 21 of 80 picks, 19 when refitted at
-  every pick, against 22 unweighted; the fixed-kernel GP classifier 10).  A run that has seen only successes predicts the
-  smoothed rate ``1 / (n + 2)`` of failure everywhere, so the weighting starts to act
-  after the first failure.  ``random`` stays unweighted: it is the reference of
-  knowing nothing.
+  every pick, against 22 unweighted; the fixed-kernel GP classifier 10).  A run that has
+  seen only successes predicts the smoothed rate ``1 / (n + 2)`` of failure everywhere,
+  so the weighting starts to act after the first failure.  ``random`` stays unweighted:
+  it is the reference of knowing nothing.
 * **How a run is scored.**  Regret counts successful trials only: a failed trial is
   scored as the stand-in's worst successful value (it cannot lower the best so far),
   and the stand-in's optimum, worst value and best-5 % threshold are taken over its
   successful candidates (the best *feasible* value, as in the constrained-optimization
   works above).  Each run records ``failed_picks``, the trials it spent in failures.
 
+Measured (``tests/test_feasibility.py``, 3 synthetic logs x 8 paired runs of 10 picks,
+EI): 40 picks wasted in failures with the weighting against 81 without (one-sided
+Wilcoxon signed-rank p = 0.0005) at the same regret (mean normalized-regret AUC 0.243
+against 0.242): the weighting saves trials; it did not find better settings.
+
 With no failure model (a log without failures, or too few to model) nothing here runs
-and the backtest is exactly the unconstrained one.
+and the backtest is exactly the unconstrained one (checked byte for byte against the
+code before this module on a moulding slice).
 
 References
 ----------
@@ -189,8 +195,9 @@ def failure_region(model, frame, n_functions: int, seed: int, *,
     and stand-in from ``task_seed(seed, "sim-fail", f)``.
     """
     p_fail = 1.0 - np.asarray(model.success_probability(frame), dtype=float)
-    failed = np.array([np.random.default_rng(task_seed(seed, "sim-fail", f)).random(len(p_fail))
-                       < p_fail for f in range(int(n_functions))], dtype=bool)
+    failed = np.array([np.random.default_rng(task_seed(seed, "sim-fail", f))
+                       .random(len(p_fail)) < p_fail for f in range(int(n_functions))],
+                      dtype=bool)
     failed = failed.reshape(int(n_functions), len(p_fail))
     kernel = model.gp_kernel() if weighted else None
     return FailureRegion(failed, p_fail, "gp" if kernel is not None else "constant",

@@ -16,8 +16,8 @@ from __future__ import annotations
 from reportlab.lib.units import mm
 from reportlab.platypus import KeepTogether, Paragraph, Spacer, Table, TableStyle
 
-from ._base import (_CAUTION_BG, _CAUTION_EDGE, _S, _TEXT_W, FigureSpec, TableData, _e, _finite, _heading, _image,
-                    _num, _p, _pct, _View)
+from ._base import (_CAUTION_BG, _CAUTION_EDGE, _S, _TEXT_W, FigureSpec, TableData, _e,
+                    _finite, _heading, _image, _num, _p, _pct, _View)
 
 #: Index of this section's heading in :data:`advisor.report.sections.SECTIONS`.
 HEADING = 6
