@@ -30,6 +30,12 @@ every step (``refit_every``) with their quick budget; nothing is carried between
 test functions" practice of e.g. Hennig & Schuler (2012, sec. 4); the candidate-set
 construction is ours.
 
+**Failed trials** (only when ``run_backtest`` is given ``failures``, i.e. the log has a
+model of failure): the stand-ins' candidates fail where that model says, a failed trial
+gives no value, every model-based setting is weighted by P(success) from the run's own
+outcomes and regret counts successful trials only; the rules are in
+:mod:`advisor.backtest._failures`.  Without it nothing changes.
+
 Summaries (per surrogate × setting, and for the baselines), over all runs
 (campaign or stand-in × seed):
 
@@ -127,6 +133,7 @@ Problems, Springer, 131-162.
 
 from __future__ import annotations
 
+import copy
 import dataclasses
 import math
 from dataclasses import dataclass
@@ -191,7 +198,7 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
                 frame: pd.DataFrame, y: np.ndarray, init: Sequence[int], n_picks: int,
                 *, batch: int = 1, method: str = "kriging_believer", refit_every: int = 1,
                 model_seed: int = 0, rng: np.random.Generator | int = 0,
-                quick: bool = False, cache: dict | None = None
+                quick: bool = False, cache: dict | None = None, failures=None
                 ) -> tuple[list[int], str | None]:
     """Run one pool-based campaign and return the picked pool indices in pick order.
 
@@ -219,6 +226,10 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
         on the same pool with the same ``model_seed`` share it, so the fit on the common
         start (and on any identical history) is done once; a fit is a deterministic
         function of seed and data, so sharing changes no result.
+    failures : RunFailures, optional
+        Which pool members fail (:mod:`advisor.backtest._failures`): the model is then
+        fitted on the successful trials only and the acquisition weighted by the run's
+        own P(success).  None (default): every trial succeeds.
 
     Returns
     -------
@@ -247,12 +258,16 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
         if setting.name == "random":
             sel = rng.choice(len(cand), size=q, replace=False)
         else:
-            Xt, yt = X[used], y[used]
+            rows = used if failures is None else failures.successful(used)
+            Xt, yt = X[rows], y[rows]
             if model is None or step % refit_every == 0:
-                model = _fitted(build, Xt, yt, tuple(used), cache)
-            s = select_batch(model, setting, X[cand], incumbent(model, Xt), q, rng, method,
-                             y_scale=_scale(yt), X_train=Xt, y_train=yt,
-                             refit=lambda Xa, ya: build().fit(Xa, ya))
+                model = _fitted(build, Xt, yt, tuple(rows), cache)
+            if failures is not None:  # the run's own classifier of failure, every pick
+                failures.refit(space, frame, used)
+            pick = select_batch if failures is None else failures.selector(cand)
+            s = pick(model, setting, X[cand], incumbent(model, Xt), q, rng, method,
+                     y_scale=_scale(yt), X_train=Xt, y_train=yt,
+                     refit=lambda Xa, ya: build().fit(Xa, ya))
             sel, draws = s.indices, draws or s.draws
         idx = [int(i) for i in cand[sel]]
         picked.extend(idx)
@@ -276,7 +291,7 @@ def _scale(y) -> float:
 
 
 def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, batch,
-               method, refit_every, model_seed, rng_seeds, quick):
+               method, refit_every, model_seed, rng_seeds, quick, failures=None):
     """Executor task: every setting of one surrogate on one pool and start.
 
     Returns one ``{"picked", "draws", "error"}`` per setting; an exception is recorded,
@@ -293,7 +308,8 @@ def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, b
                     make, surrogate, AcquisitionSetting.from_dict(setting_dict), space,
                     frame, y, init, n_picks, batch=batch, method=method,
                     refit_every=refit_every, model_seed=model_seed, rng=rng_seed,
-                    quick=quick, cache=cache)
+                    quick=quick, cache=cache,
+                    failures=None if failures is None else copy.deepcopy(failures))
                 out.append({"picked": picked, "draws": draws, "error": None})
             except Exception as exc:  # a failing surrogate is recorded, never fatal
                 out.append({"picked": None, "draws": None,
@@ -440,7 +456,7 @@ def posterior_standins(trials, n_functions: int, n_extra: int, seed: int, *,
 def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSetting], *,
                  seed: int, quick: bool, budget: int | None = None, batch: int = 1,
                  executor: Executor | None = None, make: Callable = make_surrogate,
-                 plan: BacktestPlan | None = None) -> dict:
+                 plan: BacktestPlan | None = None, failures=None) -> dict:
     """Backtest every surrogate × acquisition setting; a JSON-ready dict.
 
     Parameters
@@ -464,6 +480,10 @@ def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSettin
         (a top-level function) for a parallel executor.
     plan : BacktestPlan, optional
         Overrides the quick/full plan.
+    failures : FailureModel, optional
+        The log's model of trial failure: simulated trials then fail where it says and
+        every model-based setting is weighted by P(success)
+        (:mod:`advisor.backtest._failures`).  None (default): no trial fails.
 
     Returns
     -------
@@ -496,7 +516,7 @@ def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSettin
                                                            settings, seed, quick, batch,
                                                            plan, make)
     sim_info, sim_units, sim_tasks, sim_keys = _simulated_grid(
-        trials, surrogates, settings, seed, quick, budget, batch, plan, make)
+        trials, surrogates, settings, seed, quick, budget, batch, plan, make, failures)
     outputs = executor.map(_pool_task, replay_tasks + sim_tasks, label="backtest")
     replay_out, sim_out = outputs[:len(replay_tasks)], outputs[len(replay_tasks):]
 
@@ -627,7 +647,8 @@ def _replay_grid(trials, pools, surrogates, settings, seed, quick, batch, plan, 
     return units, tasks, keys
 
 
-def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, plan, make):
+def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, plan, make,
+                    failures=None):
     units, tasks, keys = {}, [], []
     if not plan.simulate:
         return None, units, tasks, keys
@@ -649,21 +670,27 @@ def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, pl
             "observations": "posterior draws plus normal noise at the sampler's fitted "
                             "noise level; regret scored on the noise-free draw",
             "functions": []}
+    region = None if failures is None else failures.region(stand.frame, len(stand.values),
+                                                           seed)
+    if region is not None:
+        info["failures"] = region.info()
     for f in range(len(stand.values)):
-        v = stand.values[f]
+        v = stand.values[f] if region is None else region.scored_values(f, stand.values[f])
         inits = []
         for s in range(plan.sim_seeds):
             r = np.random.default_rng(task_seed(seed, "sim-init", f, s))
-            inits.append(sorted(int(i) for i in r.choice(n_pool, size=k, replace=False)))
+            starts = n_pool if region is None else region.allowed_starts(f)
+            inits.append(sorted(int(i) for i in r.choice(starts, size=k, replace=False)))
         uid = f"f{f}"
-        units[uid] = {"id": uid, "y": v, "lo": float(stand.optimum[f]), "hi": float(v.max()),
+        units[uid] = {"id": uid, "y": v, "lo": float(v.min()), "hi": float(v.max()),
                       "threshold": _best_k_threshold(v), "inits": inits, "length": total,
-                      "lines": None, "ordered": False}
-        info["functions"].append({"id": uid, "optimum": float(stand.optimum[f]),
+                      "lines": None, "ordered": False,
+                      "failed": None if region is None else region.failed[f]}
+        info["functions"].append({"id": uid, "optimum": float(v.min()),
                                   "worst": float(v.max()),
                                   "argmin_is_logged": bool(stand.argmin[f] < stand.n_logged)})
         # one noise draw per stand-in, shared by every setting (paired)
-        v_obs = v + stand.noise_std * np.random.default_rng(
+        v_obs = stand.values[f] + stand.noise_std * np.random.default_rng(
             task_seed(seed, "sim-noise", f)).standard_normal(len(v))
         for name in surrogates:
             for s, init in enumerate(inits):
@@ -673,7 +700,9 @@ def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, pl
                               plan.refit_every,
                               task_seed(seed, "model", name, "simulated", uid, s),
                               [task_seed(seed, "acq", name, st.label, "simulated", uid, s)
-                               for st in settings], quick))
+                               for st in settings], quick)
+                             + (() if region is None else (region.for_function(
+                                 f, task_seed(seed, "sim-fail-model", name, uid, s)),)))
                 keys.append((name, uid, s))
     return info, units, tasks, keys
 
@@ -698,6 +727,8 @@ def _collect(part, units, keys, outputs, surrogates, settings, failures, trials)
                "trials_to_best5": scored["ttb"], "censored": scored["censored"]}
         if unit["lines"] is not None:
             run["picked_lines"] = [int(unit["lines"][i]) for i in seq]
+        if unit.get("failed") is not None:  # trials spent in failures (_failures.py)
+            run["failed_picks"] = int(unit["failed"][list(res["picked"])].sum())
         runs.setdefault(key, []).append((run, scored))
         if res["draws"]:
             draws[key] = res["draws"]
