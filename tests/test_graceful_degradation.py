@@ -25,10 +25,11 @@ def _nll(model, X, y):
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", [
-    "dngo",
-    # known gap (issue 14): these still fit noise on 40 rows; see the branch report
-    pytest.param("bnn", marks=pytest.mark.xfail(reason="overconfident on pure noise")),
-    pytest.param("ensemble", marks=pytest.mark.xfail(reason="overconfident on pure noise")),
+    "dngo", "ensemble", "neural_process",
+    # known gap (issue 14): the short SGHMC chain fits noise on 40 rows (its mean
+    # varies with sd 0.68 where y is pure noise of sd 0.89; split-R-hat 1.7)
+    pytest.param("bnn", marks=pytest.mark.xfail(strict=True,
+                                                reason="overconfident on pure noise")),
 ])
 def test_pure_noise_nll_is_near_the_baseline(name):
     rng = np.random.default_rng(3)

@@ -16,7 +16,8 @@ import torch
 
 from .base import ScaledSurrogate
 from .nets import (LatentSamplerMixin, StackedMLP, as_tensor, epochs_for, holdout_split,
-                   torch_generator, torch_threads, train_with_early_stopping)
+                   inner_variance_scale, torch_generator, torch_threads,
+                   train_with_early_stopping)
 
 __all__ = ["DNGO", "blr_log_evidence", "blr_posterior"]
 
@@ -206,18 +207,30 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
             self.net_, mse, X, y, train, val, batch_size=bs, epochs=epochs,
             patience=preset["patience"], lr=self.lr, generator=gen, weight_decay=1e-4)
         Phi = self._features(Xs)
+        self.variance_scale_ = 1.0
+        if len(val):
+            # the regression on the training rows only, checked on the held-out rows
+            self._blr(Phi[train], ys[train])
+            mv, sv = self._predict(Xs[val])
+            self.variance_scale_ = inner_variance_scale(ys[val], mv, sv)
+        alpha, beta, evidence = self._blr(Phi, ys)
+        self._noise_std_s = math.sqrt(self.variance_scale_ / beta)
+        self.info_ = {"epochs_run": train_info["epochs_run"],
+                      "early_stopping_epoch": train_info["best_epoch"][0],
+                      "held_out_rows": int(len(val)),
+                      "alpha": alpha, "beta": beta, "log_evidence": evidence,
+                      "n_basis": int(Phi.shape[1]),
+                      "variance_scale": float(self.variance_scale_)}
+
+    def _blr(self, Phi, ys):
+        """Evidence-maximizing Bayesian linear regression on ``Phi``; sets the posterior."""
         sp = _spectrum(Phi, ys)
         alpha, beta, evidence = _maximize_evidence(sp)
         d = alpha + beta * sp["lam"]
         self.alpha_, self.beta_ = alpha, beta
         self._U, self._d = sp["U"], d
         self.w_mean_ = sp["U"] @ (beta * sp["z"] / d)
-        self._noise_std_s = 1.0 / math.sqrt(beta)
-        self.info_ = {"epochs_run": train_info["epochs_run"],
-                      "early_stopping_epoch": train_info["best_epoch"][0],
-                      "held_out_rows": int(len(val)),
-                      "alpha": alpha, "beta": beta, "log_evidence": evidence,
-                      "n_basis": int(Phi.shape[1])}
+        return alpha, beta, evidence
 
     def _features(self, Xs):
         torch_threads()
@@ -230,11 +243,11 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
         mean = Phi @ self.w_mean_
         proj = Phi @ self._U
         var = (proj ** 2) @ (1.0 / self._d) + 1.0 / self.beta_
-        return mean, np.sqrt(var)
+        return mean, np.sqrt(var * getattr(self, "variance_scale_", 1.0))
 
     def _sample_latent(self, Xs, n_samples, rng):
         Phi = self._features(Xs)
         # w = m_N + U diag(d^-1/2) eps has covariance U diag(1/d) U^T = S_N.
         eps = rng.standard_normal((n_samples, len(self._d)))
-        w = self.w_mean_ + (eps / np.sqrt(self._d)) @ self._U.T
+        w = self.w_mean_ + (eps / np.sqrt(self._d / self.variance_scale_)) @ self._U.T
         return w @ Phi.T

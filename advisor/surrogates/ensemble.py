@@ -9,8 +9,8 @@ import torch
 
 from .base import ScaledSurrogate
 from .nets import (LatentSamplerMixin, MixtureOfComponentsMixin, StackedMLP, as_tensor,
-                   epochs_for, holdout_split, torch_generator, torch_threads,
-                   train_with_early_stopping)
+                   epochs_for, holdout_split, inner_variance_scale, mixture_moments,
+                   torch_generator, torch_threads, train_with_early_stopping)
 
 __all__ = ["DeepEnsemble", "gaussian_head"]
 
@@ -124,13 +124,18 @@ class DeepEnsemble(LatentSamplerMixin, MixtureOfComponentsMixin, ScaledSurrogate
         train_info = train_with_early_stopping(
             self.net_, _gaussian_nll, X, y, train, val, batch_size=bs, epochs=epochs,
             patience=preset["patience"], lr=self.lr, generator=gen, weight_decay=1e-4)
+        self.variance_scale_ = 1.0
+        if len(val):
+            mu_v, var_v = mixture_moments(*self.member_moments_s(Xs[val]))
+            self.variance_scale_ = inner_variance_scale(ys[val], mu_v, np.sqrt(var_v))
         _, var = self.member_moments_s(Xs)
         # noise_std_: root of the members' average predicted noise variance over the
         # training inputs (the model is heteroscedastic; this is a summary).
         self._noise_std_s = math.sqrt(float(var.mean()))
         self.info_ = {"members": n_members, "epochs_run": train_info["epochs_run"],
                       "early_stopping_epoch": train_info["best_epoch"],
-                      "held_out_rows": int(len(val)), "adversarial_training": False}
+                      "held_out_rows": int(len(val)), "adversarial_training": False,
+                      "variance_scale": float(self.variance_scale_)}
 
     def member_moments_s(self, Xs):
         """Each member's mean and variance on standardized inputs, shapes (M, n)."""

@@ -9,8 +9,8 @@ import numpy as np
 import torch
 
 from .base import ScaledSurrogate, check_fit_inputs
-from .nets import (StackedMLP, as_tensor, holdout_split, mixture_moments, torch_generator,
-                   torch_threads)
+from .nets import (StackedMLP, as_tensor, holdout_split, inner_variance_scale,
+                   mixture_moments, torch_generator, torch_threads)
 
 __all__ = ["NeuralProcess"]
 
@@ -23,9 +23,9 @@ _Y_STD_FLOOR = 0.02
 
 _PRESETS = {
     True: dict(width=32, r_dim=16, z_dim=16, steps=200, tasks=8, max_context=64,
-               max_extra=32, eval_every=20, patience=5, z_draws=16),
+               max_extra=32, eval_every=20, patience=5, z_draws=16, context_subsets=4),
     False: dict(width=64, r_dim=32, z_dim=32, steps=3000, tasks=16, max_context=128,
-                max_extra=64, eval_every=50, patience=8, z_draws=32),
+                max_extra=64, eval_every=50, patience=8, z_draws=32, context_subsets=4),
 }
 
 
@@ -201,9 +201,14 @@ class NeuralProcess(ScaledSurrogate):
         codes = self._codes(groups, len(Xs))
         out = np.empty((int(n_samples), len(Xs)))
         gen = torch_generator(rng)
-        for rows, (xc, yc) in self._contexts(codes, None):
-            mu, _ = self._condition(xc, yc, as_tensor(Xs[rows]), int(n_samples), gen)
-            out[:, rows] = mu
+        for rows, parts in self._contexts(codes, None):
+            # each draw: one context of the mixture, then z from q(z | that context)
+            pick = rng.integers(len(parts), size=int(n_samples))
+            for j in np.unique(pick):
+                xc, yc = parts[j]
+                mu, _ = self._condition(xc, yc, as_tensor(Xs[rows]), int(np.sum(pick == j)),
+                                        gen)
+                out[np.ix_(pick == j, rows)] = mu
         return self.y_mean_ + self.y_scale_ * out
 
     # -- training -----------------------------------------------------------------
@@ -216,6 +221,7 @@ class NeuralProcess(ScaledSurrogate):
         self.info_ = {"mode": (f"meta-trained across {n_groups} campaigns" if n_groups >= 2
                                else "single campaign, random context/target splits")}
         X, y = as_tensor(Xs), as_tensor(ys)
+        self.variance_scale_ = 1.0
         self.net_ = _NPNet(Xs.shape[1], p["width"], p["r_dim"], p["z_dim"], gen)
         train, val = holdout_split(len(ys), self.holdout, rng)
         pools = [train[codes[train] == c] for c in np.unique(codes[train])]
@@ -237,13 +243,18 @@ class NeuralProcess(ScaledSurrogate):
                     break
         if len(val):
             self._load(saved)
+            # widen where the held-out rows (conditioned on training rows only) show
+            # overconfidence; see nets.inner_variance_scale
+            mv, sv = self._predict_groups(Xs[val], codes[val], None, n_draws=p["z_draws"])
+            self.variance_scale_ = inner_variance_scale(ys[val], mv, sv)
         self._set_context(Xs, ys, codes)
         _, std = self._predict_groups(Xs, codes, None, n_draws=p["z_draws"],
                                       noise_only=True)
         self._noise_std_s = math.sqrt(float(np.mean(std ** 2)))
         self.info_.update({"steps_run": int(step), "early_stopping_step":
                            int(best_step if len(val) else step),
-                           "held_out_rows": int(len(val)), "campaigns": int(n_groups)})
+                           "held_out_rows": int(len(val)), "campaigns": int(n_groups),
+                           "variance_scale": float(self.variance_scale_)})
 
     def _neg_elbo(self, X, y, pool, gen, rng):
         p = self._preset
@@ -278,19 +289,43 @@ class NeuralProcess(ScaledSurrogate):
         self._ctx_X, self._ctx_y, self._ctx_codes = as_tensor(Xs), as_tensor(ys), codes
 
     def _contexts(self, codes, context):
-        """Yield (query rows, (context X, context y)) for each distinct context."""
+        """Yield (query rows, [(context X, context y), ...]) for each distinct context.
+
+        Prediction conditions the way training did ([GSR2018] Sec. 2.4: a context is a
+        set of at most ``max_context`` rows of one task).  A query row of a training
+        campaign is conditioned on that campaign's rows; a row of an unseen campaign
+        (or when ``groups`` is omitted) on each training campaign in turn, a uniform
+        mixture over them (the new campaign is taken to be like one of the earlier
+        ones, which one unknown).  A context larger than ``max_context`` rows becomes
+        ``context_subsets`` random subsets of that size, again a uniform mixture.  An
+        explicit ``context`` argument is used as given.
+        """
         if context is not None:
             xc, yc = check_fit_inputs(*context)
-            yield np.arange(len(codes)), (as_tensor(self._scale_x(xc)),
-                                          as_tensor((yc - self.y_mean_) / self.y_scale_))
+            yield np.arange(len(codes)), [(as_tensor(self._scale_x(xc)),
+                                           as_tensor((yc - self.y_mean_) / self.y_scale_))]
             return
         known = set(np.unique(self._ctx_codes).tolist())
         keys = np.where(np.isin(codes, list(known)), codes, -1)
         for key in np.unique(keys):
             rows = np.flatnonzero(keys == key)
-            sel = (np.ones(len(self._ctx_codes), bool) if key < 0
-                   else self._ctx_codes == key)
-            yield rows, (self._ctx_X[sel], self._ctx_y[sel])
+            campaigns = sorted(known) if key < 0 else [key]
+            parts = []
+            for c in campaigns:
+                parts.extend(self._capped(np.flatnonzero(self._ctx_codes == c)))
+            yield rows, [(self._ctx_X[i], self._ctx_y[i]) for i in parts]
+
+    def _capped(self, idx):
+        """``idx`` itself, or ``context_subsets`` random subsets of ``max_context`` rows.
+
+        The subsets are drawn from a generator fixed by the seed and the campaign's
+        rows, so the same model gives the same predictions on every call."""
+        cap = self._preset["max_context"]
+        if len(idx) <= cap:
+            return [idx]
+        rng = np.random.default_rng([int(self.seed), len(idx), int(idx[0])])
+        return [np.sort(rng.choice(idx, cap, replace=False))
+                for _ in range(self._preset["context_subsets"])]
 
     def _condition(self, xc, yc, xq, n_draws, gen):
         """Decoder means and stds at xq, (n_draws, m), for z ~ q(z | context)."""
@@ -308,13 +343,16 @@ class NeuralProcess(ScaledSurrogate):
         # A fixed generator: the same model gives the same predictions on every call.
         gen = torch_generator(self.seed + 1)
         mean, std = np.empty(len(Xs)), np.empty(len(Xs))
-        for rows, (xc, yc) in self._contexts(codes, context):
-            mu, sd = self._condition(xc, yc, as_tensor(Xs[rows]), n_draws, gen)
+        for rows, parts in self._contexts(codes, context):
+            xq = as_tensor(Xs[rows])
+            comps = [self._condition(xc, yc, xq, n_draws, gen) for xc, yc in parts]
+            mu = np.concatenate([c[0] for c in comps])       # (len(parts) * n_draws, m)
+            sd = np.concatenate([c[1] for c in comps])
             if noise_only:
                 mean[rows], std[rows] = mu.mean(0), np.sqrt((sd ** 2).mean(0))
             else:
                 m, v = mixture_moments(mu, sd ** 2)
-                mean[rows], std[rows] = m, np.sqrt(v)
+                mean[rows], std[rows] = m, np.sqrt(v * self.variance_scale_)
         return mean, std
 
     def _predict(self, Xs):
