@@ -103,9 +103,20 @@ class NeuralProcess(ScaledSurrogate):
     Campaigns (``groups``).  With at least two distinct campaigns the model is
     meta-trained: each task is one campaign, a random context/target split of its
     training rows per step.  At prediction a query row is conditioned on the
-    training rows of its own campaign, or on all training rows when its campaign has
-    none (or when ``groups`` is not given).  With one campaign the tasks are random
-    context/target splits of that campaign.  ``info_["mode"]`` records which.
+    training rows of its own campaign; a row of a campaign with no training rows (or
+    when ``groups`` is not given) is predicted as a uniform mixture over the training
+    campaigns, each conditioned on its own rows — the way the model was trained, on one
+    campaign at a time, rather than on the union of all rows, which it never saw as a
+    context.  A context larger than ``max_context`` rows (the largest training context)
+    becomes ``context_subsets`` = 4 random subsets of that size, again a mixture.  With
+    one campaign the tasks are random context/target splits of that campaign.
+    ``info_["mode"]`` records which.  The mixture's variance is multiplied by a scale
+    ``s^2 >= 1`` fitted on the held-out rows
+    (:func:`advisor.surrogates.nets.inner_variance_scale`, ``info_["variance_scale"]``);
+    when meta-trained, a second scale is fitted for new campaigns, on the held-out rows
+    predicted as if their campaign were new (the mixture over the *other* training
+    campaigns; ``info_["variance_scale_new_campaign"]``), since predicting an unseen
+    campaign is a harder task than predicting more rows of a known one.
 
     Parameters
     ----------
@@ -129,7 +140,7 @@ class NeuralProcess(ScaledSurrogate):
     Our choices: ReLU MLPs of two layers; latent std ``0.1 + 0.9 sigmoid(.)`` and
     observation std ``0.02 + 0.98 softplus(.)`` in standardized units; one campaign
     per step with ``tasks`` splits of it; early stopping on held-out rows; at most
-    ``max_context`` rows per training context (prediction uses the whole context).
+    ``max_context`` rows per training context, and the same cap at prediction.
     ``sample_y`` draws ``z`` once per draw and campaign and returns the decoder mean,
     a joint draw of the latent function.
 
@@ -201,7 +212,7 @@ class NeuralProcess(ScaledSurrogate):
         codes = self._codes(groups, len(Xs))
         out = np.empty((int(n_samples), len(Xs)))
         gen = torch_generator(rng)
-        for rows, parts in self._contexts(codes, None):
+        for rows, parts, _ in self._contexts(codes, None):
             # each draw: one context of the mixture, then z from q(z | that context)
             pick = rng.integers(len(parts), size=int(n_samples))
             for j in np.unique(pick):
@@ -221,7 +232,7 @@ class NeuralProcess(ScaledSurrogate):
         self.info_ = {"mode": (f"meta-trained across {n_groups} campaigns" if n_groups >= 2
                                else "single campaign, random context/target splits")}
         X, y = as_tensor(Xs), as_tensor(ys)
-        self.variance_scale_ = 1.0
+        self.variance_scale_ = self.variance_scale_new_ = 1.0
         self.net_ = _NPNet(Xs.shape[1], p["width"], p["r_dim"], p["z_dim"], gen)
         train, val = holdout_split(len(ys), self.holdout, rng)
         pools = [train[codes[train] == c] for c in np.unique(codes[train])]
@@ -247,6 +258,9 @@ class NeuralProcess(ScaledSurrogate):
             # overconfidence; see nets.inner_variance_scale
             mv, sv = self._predict_groups(Xs[val], codes[val], None, n_draws=p["z_draws"])
             self.variance_scale_ = inner_variance_scale(ys[val], mv, sv)
+            self.variance_scale_new_ = (
+                self._new_campaign_scale(Xs[val], ys[val], codes[val], p["z_draws"])
+                if n_groups >= 2 else self.variance_scale_)
         self._set_context(Xs, ys, codes)
         _, std = self._predict_groups(Xs, codes, None, n_draws=p["z_draws"],
                                       noise_only=True)
@@ -254,7 +268,8 @@ class NeuralProcess(ScaledSurrogate):
         self.info_.update({"steps_run": int(step), "early_stopping_step":
                            int(best_step if len(val) else step),
                            "held_out_rows": int(len(val)), "campaigns": int(n_groups),
-                           "variance_scale": float(self.variance_scale_)})
+                           "variance_scale": float(self.variance_scale_),
+                           "variance_scale_new_campaign": float(self.variance_scale_new_)})
 
     def _neg_elbo(self, X, y, pool, gen, rng):
         p = self._preset
@@ -303,17 +318,21 @@ class NeuralProcess(ScaledSurrogate):
         if context is not None:
             xc, yc = check_fit_inputs(*context)
             yield np.arange(len(codes)), [(as_tensor(self._scale_x(xc)),
-                                           as_tensor((yc - self.y_mean_) / self.y_scale_))]
+                                           as_tensor((yc - self.y_mean_) / self.y_scale_))
+                                          ], False
             return
         known = set(np.unique(self._ctx_codes).tolist())
         keys = np.where(np.isin(codes, list(known)), codes, -1)
         for key in np.unique(keys):
             rows = np.flatnonzero(keys == key)
             campaigns = sorted(known) if key < 0 else [key]
-            parts = []
-            for c in campaigns:
-                parts.extend(self._capped(np.flatnonzero(self._ctx_codes == c)))
-            yield rows, [(self._ctx_X[i], self._ctx_y[i]) for i in parts]
+            yield rows, self._parts(campaigns), bool(key < 0 and len(known) >= 2)
+
+    def _parts(self, campaigns):
+        parts = []
+        for c in campaigns:
+            parts.extend(self._capped(np.flatnonzero(self._ctx_codes == c)))
+        return [(self._ctx_X[i], self._ctx_y[i]) for i in parts]
 
     def _capped(self, idx):
         """``idx`` itself, or ``context_subsets`` random subsets of ``max_context`` rows.
@@ -343,17 +362,40 @@ class NeuralProcess(ScaledSurrogate):
         # A fixed generator: the same model gives the same predictions on every call.
         gen = torch_generator(self.seed + 1)
         mean, std = np.empty(len(Xs)), np.empty(len(Xs))
-        for rows, parts in self._contexts(codes, context):
-            xq = as_tensor(Xs[rows])
-            comps = [self._condition(xc, yc, xq, n_draws, gen) for xc, yc in parts]
-            mu = np.concatenate([c[0] for c in comps])       # (len(parts) * n_draws, m)
-            sd = np.concatenate([c[1] for c in comps])
+        for rows, parts, new in self._contexts(codes, context):
+            mu, sd = self._components(Xs[rows], parts, n_draws, gen)
             if noise_only:
                 mean[rows], std[rows] = mu.mean(0), np.sqrt((sd ** 2).mean(0))
             else:
                 m, v = mixture_moments(mu, sd ** 2)
-                mean[rows], std[rows] = m, np.sqrt(v * self.variance_scale_)
+                scale = self.variance_scale_new_ if new else self.variance_scale_
+                mean[rows], std[rows] = m, np.sqrt(v * scale)
         return mean, std
+
+    def _components(self, Xs, parts, n_draws, gen):
+        """Decoder means and stds, (len(parts) * n_draws, m), over a mixture's contexts."""
+        xq = as_tensor(Xs)
+        comps = [self._condition(xc, yc, xq, n_draws, gen) for xc, yc in parts]
+        return (np.concatenate([c[0] for c in comps]), np.concatenate([c[1] for c in comps]))
+
+    def _new_campaign_scale(self, Xv, yv, codes_v, n_draws):
+        """The variance scale for a campaign without training rows: each held-out row
+        predicted as if its campaign were new (the mixture over the *other* training
+        campaigns), scored against its value (nets.inner_variance_scale)."""
+        gen = torch_generator(self.seed + 1)
+        known = sorted(set(np.unique(self._ctx_codes).tolist()))
+        ys, ms, ss = [], [], []
+        for c in np.unique(codes_v):
+            others = [k for k in known if k != c]
+            if not others:
+                continue
+            rows = np.flatnonzero(codes_v == c)
+            mu, sd = self._components(Xv[rows], self._parts(others), n_draws, gen)
+            m, v = mixture_moments(mu, sd ** 2)
+            ys.append(yv[rows]), ms.append(m), ss.append(np.sqrt(v))
+        if not ys:
+            return self.variance_scale_
+        return inner_variance_scale(np.concatenate(ys), np.concatenate(ms), np.concatenate(ss))
 
     def _predict(self, Xs):
         return self._predict_groups(Xs, np.full(len(Xs), -1), None,
