@@ -26,9 +26,21 @@ from __future__ import annotations
 import numpy as np
 from scipy import special, stats
 
-__all__ = ["OutputWarp", "WarpedNormal"]
+__all__ = ["OutputWarp", "WarpedNormal", "yeo_johnson_lambda"]
 
 _N_QUAD = 400   # midpoint nodes in u for CRPS and moments; error O(1/n^2) away from tails
+
+
+def yeo_johnson_lambda(lmbda: float) -> float:
+    """``lmbda`` clipped to [0, 2], where the Yeo-Johnson map is onto the whole line.
+
+    For ``lambda < 0`` the transform of ``y >= 0`` is bounded above by ``-1/lambda``,
+    for ``lambda > 2`` that of ``y < 0`` below by ``1/(2 - lambda)`` ([YJ2000], Eq. 2.1);
+    a Gaussian on ``T(y)`` then puts mass where the inverse does not exist and the
+    predictive mean becomes infinite (seen on the fermentation log's leave-one-campaign-
+    out folds).  Within [0, 2] every Gaussian value has a preimage (our choice of fix).
+    """
+    return float(np.clip(lmbda, 0.0, 2.0))
 
 
 class OutputWarp:
@@ -54,7 +66,7 @@ class OutputWarp:
             return cls("log")
         scale = float(np.std(y)) or 1.0
         _, lm = stats.yeojohnson(y / scale)
-        return cls("yeo-johnson", float(np.clip(lm, -2.0, 4.0)), scale)
+        return cls("yeo-johnson", yeo_johnson_lambda(lm), scale)
 
     def forward(self, y):
         y = np.asarray(y, dtype=float)

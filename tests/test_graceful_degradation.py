@@ -25,10 +25,15 @@ def _nll(model, X, y):
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", [
-    "dngo",
-    # known gap (issue 14): these still fit noise on 40 rows; see the branch report
-    pytest.param("bnn", marks=pytest.mark.xfail(reason="overconfident on pure noise")),
-    pytest.param("ensemble", marks=pytest.mark.xfail(reason="overconfident on pure noise")),
+    "dngo", "ensemble", "neural_process",
+    # known gaps (issue 14), measured NLL against the baseline's 1.471 + 0.05:
+    # the short SGHMC chain fits noise on 40 rows (1.731; its mean varies with sd 0.68
+    # where y is pure noise of sd 0.89; split-R-hat 1.7); type-II maximum likelihood
+    # picks short length scales and little noise on 40 rows of noise (gp 3.54, warped
+    # gp 3.06, campaign gp 1.573); the forest's leaves of 3 rows (1.551)
+    *[pytest.param(n, marks=pytest.mark.xfail(strict=True, reason="overconfident on "
+                                              "pure noise"))
+      for n in ("bnn", "gp", "warped_gp", "campaign_gp", "forest")],
 ])
 def test_pure_noise_nll_is_near_the_baseline(name):
     rng = np.random.default_rng(3)
@@ -59,7 +64,8 @@ def test_hartmann3_minimum_is_the_published_value():
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("name", ["dngo", "bnn", "ensemble", "forest"])
+@pytest.mark.parametrize("name", ["gp", "campaign_gp", "warped_gp", "forest", "dngo", "bnn",
+                                  "ensemble", "neural_process"])
 def test_sixteen_inputs_three_matter_beats_the_baseline(name):
     rng = np.random.default_rng(0)
     X, Xt = rng.uniform(size=(150, 16)), rng.uniform(size=(300, 16))
@@ -67,3 +73,86 @@ def test_sixteen_inputs_three_matter_beats_the_baseline(name):
     yt = _hartmann3_in_16(Xt) + 0.05 * rng.standard_normal(300)
     base = _nll(make_surrogate("baseline").fit(X, y), Xt, yt)
     assert _nll(make_surrogate(name, seed=0, quick=True).fit(X, y), Xt, yt) < base
+
+
+# -- the sample logs, under forward chaining and leave-one-campaign-out ---------------
+_LOGS = {
+    "moulding": dict(path="moulding_warpage.csv", objective="warpage_mm", campaign="lot",
+                     order="run"),
+    "fermentation": dict(path="fermentation_yield.csv", objective="yield_g_per_l",
+                         direction="maximize", campaign="batch_series", order="run",
+                         status="outcome", success=["ok"]),
+    "forecast": dict(path="forecast_tuning.csv", objective="val_mape", campaign="study",
+                     order="trial", space="forecast_tuning.space.toml"),
+}
+_BUILTIN_MODELS = ["gp", "campaign_gp", "warped_gp", "forest", "dngo", "bnn", "ensemble",
+                   "neural_process"]
+#: (log, scheme, model) cases where the model still loses to the baseline: known gaps,
+#: kept visible.  Empty when every built-in model wins everywhere.
+_KNOWN_LOSSES = {
+    # lot L04 left out (last fold): the models' error is smaller than the baseline's
+    # (root-mean-square 0.107 vs 0.135 mm) but L04 lies 0.04 mm off and their sd
+    # (0.060-0.067 mm, after the new-campaign scales 1.3-1.6 fitted on 18 rows) is too
+    # small: mean z^2 2.8-3.1.  Over all four lots both beat the baseline (README).
+    ("moulding", "campaign", "dngo"),
+    ("moulding", "campaign", "neural_process"),
+    # two training campaigns only; the third (BS3) lies 1.8 g/L off the neural process's
+    # mixture over the two, 2.7 g/L root-mean-square error against the new-campaign
+    # scale's 1.35 sd (measured): NLL 3.41 vs the baseline's 3.10
+    ("fermentation", "campaign", "neural_process"),
+}
+_FOLD_CACHE = {}
+
+
+def _last_fold(log, scheme):
+    """The log's trials, features per encoding and the last fold of the scheme (the
+    largest training set under forward chaining; the last campaign left out)."""
+    from pathlib import Path
+
+    import advisor
+    from advisor.validation import choose_scheme
+    if (log, scheme) not in _FOLD_CACHE:
+        kw = dict(_LOGS[log])
+        root = Path(__file__).resolve().parent.parent / "sample_logs"
+        path = root / kw.pop("path")
+        if "space" in kw:
+            kw["space"] = root / kw["space"]
+        t = advisor.load_trials(path, **kw)
+        groups = np.asarray(t.groups)
+        ch = choose_scheme(scheme, order=t.order_values, groups=groups, n_rows=t.n_used, seed=0,
+                           quick=True)
+        X = t.features("onehot")
+        train, test = list(ch.splitter.split(X, t.y, groups))[-1]
+        _FOLD_CACHE[log, scheme] = (t, groups, train, test)
+    return _FOLD_CACHE[log, scheme]
+
+
+def _fold_nll(name, log, scheme):
+    from advisor.assessment import _encoding_of, _fit_predict_task
+    t, groups, train, test = _last_fold(log, scheme)
+    X = t.features(_encoding_of(name))
+    out = _fit_predict_task(name, 0, X, t.y, groups, train, test, seed=0, quick=True,
+                            options={})
+    assert out["error"] is None, out["error"]
+    if "nll_pt" in out:      # a non-Gaussian predictive distribution (warped GP)
+        return float(np.mean(out["nll_pt"]))
+    return float(-norm.logpdf(t.y[test], out["mean"], out["std"]).mean())
+
+
+def _log_cases():
+    for log in _LOGS:
+        for scheme in ("forward", "campaign"):
+            for name in _BUILTIN_MODELS:
+                marks = ([pytest.mark.xfail(strict=True, reason="known gap (issue 14)")]
+                         if (log, scheme, name) in _KNOWN_LOSSES else [])
+                yield pytest.param(log, scheme, name, marks=marks,
+                                   id=f"{log}-{scheme}-{name}")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("log, scheme, name", list(_log_cases()))
+def test_sample_log_nll_beats_the_baseline(log, scheme, name):
+    # One fold per (log, scheme) — the last — keeps this affordable; the full-fold table
+    # is in the README ("Does every model know more than nothing?").  The baseline is
+    # the knowing-nothing predictor of the same fold.
+    assert _fold_nll(name, log, scheme) < _fold_nll("baseline", log, scheme)

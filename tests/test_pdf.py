@@ -143,3 +143,20 @@ def test_pdf_twenty_parameters_and_failures(tmp_path):
     assert "high failure share" in full  # campaign C lost most of its trials
     for f in t.failures:
         assert f"{f['line']} C" in full or f"{f['line']} A" in full or f"{f['line']} B" in full
+
+
+@pytest.mark.slow
+def test_pdf_shows_between_campaign_sd_and_the_new_gp_facts(tmp_path):
+    from pathlib import Path
+
+    log = Path(__file__).resolve().parent.parent / "sample_logs" / "moulding_warpage.csv"
+    t = advisor.load_trials(log, objective="warpage_mm", campaign="lot", order="run")
+    a = advisor.assess(t, seed=0, quick=True, surrogates=["campaign_gp", "warped_gp",
+                                                          "baseline"],
+                       backtest=False, plan=False)
+    full = _flat(" ".join(_text(write_pdf(a, tmp_path / "r.pdf"))[1]))
+    sd = a.model_info["campaign_gp"]["between_campaign_sd"]
+    # the data section states the fitted spread; the fitted-model table its facts
+    assert "between-campaign standard deviation is" in full
+    assert f"{sd:.4g}"[:4] in full
+    assert "transform: " + a.model_info["warped_gp"]["transform"] in full

@@ -16,7 +16,8 @@ import torch
 
 from .base import ScaledSurrogate
 from .nets import (LatentSamplerMixin, StackedMLP, as_tensor, epochs_for, holdout_split,
-                   torch_generator, torch_threads, train_with_early_stopping)
+                   inner_variance_scale, torch_generator, torch_threads,
+                   train_with_early_stopping)
 
 __all__ = ["DNGO", "blr_log_evidence", "blr_posterior"]
 
@@ -167,6 +168,23 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
     Adam, a step budget instead of a fixed epoch count.  ``sample_y`` draws ``w`` from
     its Gaussian posterior, giving joint draws of ``w^T phi(x)``.
 
+    **Graceful degradation.**  With uninformative features the evidence drives
+    ``alpha`` up and the prediction to the training mean and spread (the BLR's own
+    prior fallback).  Where the network's features are overfitted the evidence cannot
+    see it (they were fitted to the same rows), so the regression is refitted on the
+    training slice alone, its predictions on the held-out slice give a variance scale
+    ``s^2 >= 1`` (:func:`advisor.surrogates.nets.inner_variance_scale`: sigma scaling,
+    Laves et al. 2020, with a conjugate prior), and the final predictive variance (and
+    the posterior of ``w``, so ``sample_y`` agrees) is multiplied by it;
+    ``info_["variance_scale"]``.  The held-out slice also chose the early-stopping
+    epoch, so the scale is slightly optimistic (our choice, to keep one split).
+    With campaign labels (``fit(X, y, groups)``, two or more campaigns) a second scale
+    is fitted for campaigns absent from training: the held-out rows of each campaign
+    predicted by the regression on the *other* campaigns' training rows
+    (``info_["variance_scale_new_campaign"]``, never below the row scale), applied by
+    ``predict(X, groups)`` to rows of unseen campaigns — a lot-to-lot shift the network
+    cannot see is then in the variance.  Without labels, one scale for all rows.
+
     References
     ----------
     Snoek, J., Rippel, O., Swersky, K., Kiros, R., Satish, N., Sundaram, N., Patwary,
@@ -176,6 +194,7 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
     """
 
     input_encoding = "onehot"
+    uses_groups = True
 
     def __init__(self, seed: int = 0, quick: bool = False, hidden=(50, 50, 50),
                  activation: str = "tanh", batch_size: int | None = None, lr: float = 3e-3,
@@ -186,6 +205,27 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
         self.batch_size = batch_size
         self.lr = lr
         self.holdout = holdout
+
+    def fit(self, X, y, groups=None):
+        """Fit on ``X``, ``y``; ``groups`` (campaign labels, optional) only serve the
+        new-campaign variance scale (see Graceful degradation)."""
+        n = np.asarray(y).shape[0]
+        self._train_groups = (None if groups is None
+                              else np.asarray(groups, dtype=object).ravel())
+        if self._train_groups is not None and len(self._train_groups) != n:
+            raise ValueError(f"groups has {len(self._train_groups)} entries for {n} rows")
+        return super().fit(X, y)
+
+    def predict(self, X, groups=None):
+        """Predictive mean and sd; rows of a campaign absent from training get the
+        new-campaign variance scale, all others (and ``groups=None``) the row scale."""
+        mean, std = super().predict(X)
+        if groups is not None and self.variance_scale_new_ != self.variance_scale_:
+            seen = set(self.groups_seen_)
+            new = np.array([g not in seen for g in np.asarray(groups, dtype=object).ravel()])
+            std = np.where(new, std * math.sqrt(self.variance_scale_new_
+                                                / self.variance_scale_), std)
+        return mean, std
 
     def _fit(self, Xs, ys):
         torch_threads()
@@ -206,18 +246,56 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
             self.net_, mse, X, y, train, val, batch_size=bs, epochs=epochs,
             patience=preset["patience"], lr=self.lr, generator=gen, weight_decay=1e-4)
         Phi = self._features(Xs)
+        self.variance_scale_ = 1.0
+        if len(val):
+            # the regression on the training rows only, checked on the held-out rows
+            self._blr(Phi[train], ys[train])
+            mv, sv = self._predict(Xs[val])
+            self.variance_scale_ = inner_variance_scale(ys[val], mv, sv)
+        self.variance_scale_new_ = self._new_campaign_scale(Phi, ys, train, val)
+        alpha, beta, evidence = self._blr(Phi, ys)
+        self._noise_std_s = math.sqrt(self.variance_scale_ / beta)
+        self.info_ = {"epochs_run": train_info["epochs_run"],
+                      "early_stopping_epoch": train_info["best_epoch"][0],
+                      "held_out_rows": int(len(val)),
+                      "alpha": alpha, "beta": beta, "log_evidence": evidence,
+                      "n_basis": int(Phi.shape[1]),
+                      "variance_scale": float(self.variance_scale_),
+                      "variance_scale_new_campaign": float(self.variance_scale_new_)}
+
+    def _new_campaign_scale(self, Phi, ys, train, val):
+        """Variance scale for rows of a campaign absent from training: the held-out rows
+        of each campaign predicted by the regression on the training rows of the *other*
+        campaigns (needs two or more campaigns; else the row scale)."""
+        g = getattr(self, "_train_groups", None)
+        self.groups_seen_ = [] if g is None else list(dict.fromkeys(g.tolist()))
+        if g is None or len(self.groups_seen_) < 2 or not len(val):
+            return self.variance_scale_
+        yv, mv, sv = [], [], []
+        for c in dict.fromkeys(g[val].tolist()):
+            others = train[g[train] != c]
+            rows = val[g[val] == c]
+            if len(others) < 2:
+                continue
+            self._blr(Phi[others], ys[others])
+            proj = Phi[rows] @ self._U
+            yv.append(ys[rows])
+            mv.append(Phi[rows] @ self.w_mean_)
+            sv.append(np.sqrt((proj ** 2) @ (1.0 / self._d) + 1.0 / self.beta_))
+        if not yv:
+            return self.variance_scale_
+        scale = inner_variance_scale(np.concatenate(yv), np.concatenate(mv), np.concatenate(sv))
+        return max(scale, self.variance_scale_)
+
+    def _blr(self, Phi, ys):
+        """Evidence-maximizing Bayesian linear regression on ``Phi``; sets the posterior."""
         sp = _spectrum(Phi, ys)
         alpha, beta, evidence = _maximize_evidence(sp)
         d = alpha + beta * sp["lam"]
         self.alpha_, self.beta_ = alpha, beta
         self._U, self._d = sp["U"], d
         self.w_mean_ = sp["U"] @ (beta * sp["z"] / d)
-        self._noise_std_s = 1.0 / math.sqrt(beta)
-        self.info_ = {"epochs_run": train_info["epochs_run"],
-                      "early_stopping_epoch": train_info["best_epoch"][0],
-                      "held_out_rows": int(len(val)),
-                      "alpha": alpha, "beta": beta, "log_evidence": evidence,
-                      "n_basis": int(Phi.shape[1])}
+        return alpha, beta, evidence
 
     def _features(self, Xs):
         torch_threads()
@@ -230,11 +308,11 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
         mean = Phi @ self.w_mean_
         proj = Phi @ self._U
         var = (proj ** 2) @ (1.0 / self._d) + 1.0 / self.beta_
-        return mean, np.sqrt(var)
+        return mean, np.sqrt(var * getattr(self, "variance_scale_", 1.0))
 
     def _sample_latent(self, Xs, n_samples, rng):
         Phi = self._features(Xs)
         # w = m_N + U diag(d^-1/2) eps has covariance U diag(1/d) U^T = S_N.
         eps = rng.standard_normal((n_samples, len(self._d)))
-        w = self.w_mean_ + (eps / np.sqrt(self._d)) @ self._U.T
+        w = self.w_mean_ + (eps / np.sqrt(self._d / self.variance_scale_)) @ self._U.T
         return w @ Phi.T

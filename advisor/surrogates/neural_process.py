@@ -9,8 +9,8 @@ import numpy as np
 import torch
 
 from .base import ScaledSurrogate, check_fit_inputs
-from .nets import (StackedMLP, as_tensor, holdout_split, mixture_moments, torch_generator,
-                   torch_threads)
+from .nets import (StackedMLP, as_tensor, holdout_split, inner_variance_scale,
+                   mixture_moments, torch_generator, torch_threads)
 
 __all__ = ["NeuralProcess"]
 
@@ -23,9 +23,9 @@ _Y_STD_FLOOR = 0.02
 
 _PRESETS = {
     True: dict(width=32, r_dim=16, z_dim=16, steps=200, tasks=8, max_context=64,
-               max_extra=32, eval_every=20, patience=5, z_draws=16),
+               max_extra=32, eval_every=20, patience=5, z_draws=16, context_subsets=4),
     False: dict(width=64, r_dim=32, z_dim=32, steps=3000, tasks=16, max_context=128,
-                max_extra=64, eval_every=50, patience=8, z_draws=32),
+                max_extra=64, eval_every=50, patience=8, z_draws=32, context_subsets=4),
 }
 
 
@@ -103,9 +103,20 @@ class NeuralProcess(ScaledSurrogate):
     Campaigns (``groups``).  With at least two distinct campaigns the model is
     meta-trained: each task is one campaign, a random context/target split of its
     training rows per step.  At prediction a query row is conditioned on the
-    training rows of its own campaign, or on all training rows when its campaign has
-    none (or when ``groups`` is not given).  With one campaign the tasks are random
-    context/target splits of that campaign.  ``info_["mode"]`` records which.
+    training rows of its own campaign; a row of a campaign with no training rows (or
+    when ``groups`` is not given) is predicted as a uniform mixture over the training
+    campaigns, each conditioned on its own rows — the way the model was trained, on one
+    campaign at a time, rather than on the union of all rows, which it never saw as a
+    context.  A context larger than ``max_context`` rows (the largest training context)
+    becomes ``context_subsets`` = 4 random subsets of that size, again a mixture.  With
+    one campaign the tasks are random context/target splits of that campaign.
+    ``info_["mode"]`` records which.  The mixture's variance is multiplied by a scale
+    ``s^2 >= 1`` fitted on the held-out rows
+    (:func:`advisor.surrogates.nets.inner_variance_scale`, ``info_["variance_scale"]``);
+    when meta-trained, a second scale is fitted for new campaigns, on the held-out rows
+    predicted as if their campaign were new (the mixture over the *other* training
+    campaigns; ``info_["variance_scale_new_campaign"]``), since predicting an unseen
+    campaign is a harder task than predicting more rows of a known one.
 
     Parameters
     ----------
@@ -129,7 +140,7 @@ class NeuralProcess(ScaledSurrogate):
     Our choices: ReLU MLPs of two layers; latent std ``0.1 + 0.9 sigmoid(.)`` and
     observation std ``0.02 + 0.98 softplus(.)`` in standardized units; one campaign
     per step with ``tasks`` splits of it; early stopping on held-out rows; at most
-    ``max_context`` rows per training context (prediction uses the whole context).
+    ``max_context`` rows per training context, and the same cap at prediction.
     ``sample_y`` draws ``z`` once per draw and campaign and returns the decoder mean,
     a joint draw of the latent function.
 
@@ -201,9 +212,14 @@ class NeuralProcess(ScaledSurrogate):
         codes = self._codes(groups, len(Xs))
         out = np.empty((int(n_samples), len(Xs)))
         gen = torch_generator(rng)
-        for rows, (xc, yc) in self._contexts(codes, None):
-            mu, _ = self._condition(xc, yc, as_tensor(Xs[rows]), int(n_samples), gen)
-            out[:, rows] = mu
+        for rows, parts, _ in self._contexts(codes, None):
+            # each draw: one context of the mixture, then z from q(z | that context)
+            pick = rng.integers(len(parts), size=int(n_samples))
+            for j in np.unique(pick):
+                xc, yc = parts[j]
+                mu, _ = self._condition(xc, yc, as_tensor(Xs[rows]), int(np.sum(pick == j)),
+                                        gen)
+                out[np.ix_(pick == j, rows)] = mu
         return self.y_mean_ + self.y_scale_ * out
 
     # -- training -----------------------------------------------------------------
@@ -216,6 +232,7 @@ class NeuralProcess(ScaledSurrogate):
         self.info_ = {"mode": (f"meta-trained across {n_groups} campaigns" if n_groups >= 2
                                else "single campaign, random context/target splits")}
         X, y = as_tensor(Xs), as_tensor(ys)
+        self.variance_scale_ = self.variance_scale_new_ = 1.0
         self.net_ = _NPNet(Xs.shape[1], p["width"], p["r_dim"], p["z_dim"], gen)
         train, val = holdout_split(len(ys), self.holdout, rng)
         pools = [train[codes[train] == c] for c in np.unique(codes[train])]
@@ -237,13 +254,22 @@ class NeuralProcess(ScaledSurrogate):
                     break
         if len(val):
             self._load(saved)
+            # widen where the held-out rows (conditioned on training rows only) show
+            # overconfidence; see nets.inner_variance_scale
+            mv, sv = self._predict_groups(Xs[val], codes[val], None, n_draws=p["z_draws"])
+            self.variance_scale_ = inner_variance_scale(ys[val], mv, sv)
+            self.variance_scale_new_ = (
+                self._new_campaign_scale(Xs[val], ys[val], codes[val], p["z_draws"])
+                if n_groups >= 2 else self.variance_scale_)
         self._set_context(Xs, ys, codes)
         _, std = self._predict_groups(Xs, codes, None, n_draws=p["z_draws"],
                                       noise_only=True)
         self._noise_std_s = math.sqrt(float(np.mean(std ** 2)))
         self.info_.update({"steps_run": int(step), "early_stopping_step":
                            int(best_step if len(val) else step),
-                           "held_out_rows": int(len(val)), "campaigns": int(n_groups)})
+                           "held_out_rows": int(len(val)), "campaigns": int(n_groups),
+                           "variance_scale": float(self.variance_scale_),
+                           "variance_scale_new_campaign": float(self.variance_scale_new_)})
 
     def _neg_elbo(self, X, y, pool, gen, rng):
         p = self._preset
@@ -278,19 +304,47 @@ class NeuralProcess(ScaledSurrogate):
         self._ctx_X, self._ctx_y, self._ctx_codes = as_tensor(Xs), as_tensor(ys), codes
 
     def _contexts(self, codes, context):
-        """Yield (query rows, (context X, context y)) for each distinct context."""
+        """Yield (query rows, [(context X, context y), ...]) for each distinct context.
+
+        Prediction conditions the way training did ([GSR2018] Sec. 2.4: a context is a
+        set of at most ``max_context`` rows of one task).  A query row of a training
+        campaign is conditioned on that campaign's rows; a row of an unseen campaign
+        (or when ``groups`` is omitted) on each training campaign in turn, a uniform
+        mixture over them (the new campaign is taken to be like one of the earlier
+        ones, which one unknown).  A context larger than ``max_context`` rows becomes
+        ``context_subsets`` random subsets of that size, again a uniform mixture.  An
+        explicit ``context`` argument is used as given.
+        """
         if context is not None:
             xc, yc = check_fit_inputs(*context)
-            yield np.arange(len(codes)), (as_tensor(self._scale_x(xc)),
-                                          as_tensor((yc - self.y_mean_) / self.y_scale_))
+            yield np.arange(len(codes)), [(as_tensor(self._scale_x(xc)),
+                                           as_tensor((yc - self.y_mean_) / self.y_scale_))
+                                          ], False
             return
         known = set(np.unique(self._ctx_codes).tolist())
         keys = np.where(np.isin(codes, list(known)), codes, -1)
         for key in np.unique(keys):
             rows = np.flatnonzero(keys == key)
-            sel = (np.ones(len(self._ctx_codes), bool) if key < 0
-                   else self._ctx_codes == key)
-            yield rows, (self._ctx_X[sel], self._ctx_y[sel])
+            campaigns = sorted(known) if key < 0 else [key]
+            yield rows, self._parts(campaigns), bool(key < 0 and len(known) >= 2)
+
+    def _parts(self, campaigns):
+        parts = []
+        for c in campaigns:
+            parts.extend(self._capped(np.flatnonzero(self._ctx_codes == c)))
+        return [(self._ctx_X[i], self._ctx_y[i]) for i in parts]
+
+    def _capped(self, idx):
+        """``idx`` itself, or ``context_subsets`` random subsets of ``max_context`` rows.
+
+        The subsets are drawn from a generator fixed by the seed and the campaign's
+        rows, so the same model gives the same predictions on every call."""
+        cap = self._preset["max_context"]
+        if len(idx) <= cap:
+            return [idx]
+        rng = np.random.default_rng([int(self.seed), len(idx), int(idx[0])])
+        return [np.sort(rng.choice(idx, cap, replace=False))
+                for _ in range(self._preset["context_subsets"])]
 
     def _condition(self, xc, yc, xq, n_draws, gen):
         """Decoder means and stds at xq, (n_draws, m), for z ~ q(z | context)."""
@@ -308,14 +362,40 @@ class NeuralProcess(ScaledSurrogate):
         # A fixed generator: the same model gives the same predictions on every call.
         gen = torch_generator(self.seed + 1)
         mean, std = np.empty(len(Xs)), np.empty(len(Xs))
-        for rows, (xc, yc) in self._contexts(codes, context):
-            mu, sd = self._condition(xc, yc, as_tensor(Xs[rows]), n_draws, gen)
+        for rows, parts, new in self._contexts(codes, context):
+            mu, sd = self._components(Xs[rows], parts, n_draws, gen)
             if noise_only:
                 mean[rows], std[rows] = mu.mean(0), np.sqrt((sd ** 2).mean(0))
             else:
                 m, v = mixture_moments(mu, sd ** 2)
-                mean[rows], std[rows] = m, np.sqrt(v)
+                scale = self.variance_scale_new_ if new else self.variance_scale_
+                mean[rows], std[rows] = m, np.sqrt(v * scale)
         return mean, std
+
+    def _components(self, Xs, parts, n_draws, gen):
+        """Decoder means and stds, (len(parts) * n_draws, m), over a mixture's contexts."""
+        xq = as_tensor(Xs)
+        comps = [self._condition(xc, yc, xq, n_draws, gen) for xc, yc in parts]
+        return (np.concatenate([c[0] for c in comps]), np.concatenate([c[1] for c in comps]))
+
+    def _new_campaign_scale(self, Xv, yv, codes_v, n_draws):
+        """The variance scale for a campaign without training rows: each held-out row
+        predicted as if its campaign were new (the mixture over the *other* training
+        campaigns), scored against its value (nets.inner_variance_scale)."""
+        gen = torch_generator(self.seed + 1)
+        known = sorted(set(np.unique(self._ctx_codes).tolist()))
+        ys, ms, ss = [], [], []
+        for c in np.unique(codes_v):
+            others = [k for k in known if k != c]
+            if not others:
+                continue
+            rows = np.flatnonzero(codes_v == c)
+            mu, sd = self._components(Xv[rows], self._parts(others), n_draws, gen)
+            m, v = mixture_moments(mu, sd ** 2)
+            ys.append(yv[rows]), ms.append(m), ss.append(np.sqrt(v))
+        if not ys:
+            return self.variance_scale_
+        return inner_variance_scale(np.concatenate(ys), np.concatenate(ms), np.concatenate(ss))
 
     def _predict(self, Xs):
         return self._predict_groups(Xs, np.full(len(Xs), -1), None,

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import stats
 
-from ..distributions import OutputWarp, WarpedNormal
+from ..distributions import OutputWarp, WarpedNormal, yeo_johnson_lambda
 from .base import EstimatorMixin, check_fit_inputs
 from .gp import MaternGP
 
@@ -57,8 +57,8 @@ class WarpedGP(EstimatorMixin):
             w = OutputWarp("log")
         else:
             scale = float(np.std(y)) or 1.0
-            w = OutputWarp("yeo-johnson", float(np.clip(stats.yeojohnson(y / scale)[1],
-                                                        -2.0, 4.0)), scale)
+            w = OutputWarp("yeo-johnson", yeo_johnson_lambda(stats.yeojohnson(y / scale)[1]),
+                           scale)
         self.warp_ = w
         self.gp_ = MaternGP(seed=self.seed, quick=self.quick).fit(X, w.forward(y))
         self.info_ = dict(self.gp_.info_)

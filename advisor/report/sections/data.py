@@ -119,6 +119,12 @@ def _noise_block(v: _View) -> list:
         rows.append(_cells([_name(n), _num(f) if _finite(f) else "not reported by the model",
                             _num(ratio) if ratio is not None else "n/a"]))
     out.append(_table(rows, [60 * mm, 45 * mm, 45 * mm]))
+    between = (v.d.get("input") or {}).get("between_campaign_sd")
+    if _finite(between):
+        out.append(_p(f"Campaign-to-campaign shift: the campaign GP's fitted between-campaign "
+                      f"standard deviation is <b>{_num(between)}</b> {_e(v.objective_label)} "
+                      "(a random offset per campaign; a new campaign's offset is unknown and "
+                      "this spread enters its predictions)."))
     return out
 
 
