@@ -88,9 +88,12 @@ def default_setting_runs(backtest: dict | None) -> dict:
     sec = (backtest or {}).get("simulated") or {}
     if sec.get("error"):
         return {}
+    label = next((c["decision"]["default"] for c in
+                  ((backtest or {}).get("per_surrogate") or {}).values()
+                  if (c.get("decision") or {}).get("default")), DEFAULT_LABEL)
     out = {}
     for r in sec.get("results") or []:
-        if r.get("label") == DEFAULT_LABEL and not r.get("error") and r.get("runs"):
+        if r.get("label") == label and not r.get("error") and r.get("runs"):
             out[r["surrogate"]] = {(run["unit"], run["seed_index"]): run["auc"]
                                    for run in r["runs"]}
     return out

@@ -90,13 +90,6 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
         con.print(f"  - {escape(reason)}")
     for note in rec.get("cheaper_alternatives_by_fit_seconds") or []:
         con.print(f"  - {escape(note)}")
-    if test.get("test"):
-        power = test.get("power_at_0.1")
-        power_txt = "n/a" if power is None else f"{power:.2f}"
-        con.print(f"  - acquisition evidence [bold]{rec.get('acquisition_evidence')}[/]: "
-                  f"{escape(str(test['test']))} at level {test.get('level')} on the "
-                  f"{test.get('experiment')} runs; power to detect a 0.1 AUC gain "
-                  f"{power_txt}")
     for r in d["ranking"][1:]:
         if r.get("reasons"):
             con.print(f"  {r['surrogate']}: {escape(r['reasons'][0])}")

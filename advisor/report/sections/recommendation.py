@@ -86,14 +86,8 @@ def decision_texts(v: _View) -> list[str]:
     st = rec.get("acquisition_statement")
     test = rec.get("acquisition_test") or {}
     if st:
-        power = test.get("power_at_0.1")
-        extra = ""
-        if test.get("test"):
-            extra = (f" Test: {_e(test.get('test'))}; level {_num(test.get('level'))}; "
-                     f"evidence word <i>{_e(rec.get('acquisition_evidence'))}</i>; power to "
-                     "detect a true gain of 0.1 in normalized-regret area "
-                     + ("not measured" if not _finite(power) else f"{float(power):.2f}")
-                     + ".")
+        word = rec.get("acquisition_evidence")
+        extra = f" Evidence word: <i>{_e(word)}</i>." if word else ""
         out.append(f"<b>Acquisition.</b> {_e(st)}.{extra}")
     tb = rec.get("tie_break")
     if tb:
