@@ -10,8 +10,8 @@ log, scored on two fresh campaigns; as in ``benchmarks/real_logs/measure.py``).
 
 From those it compares three tie rules within the tie group:
 
-* ``backtest score`` (the former rule): the lowest median AUC wins the tie, whatever the
-  evidence;
+* ``backtest score`` (the former rule): among the tied models the backtest ran, the lowest
+  median AUC wins the tie, whatever the evidence;
 * ``paired test`` (the current rule): another tied model goes first only when the paired
   one-sided Wilcoxon test over the same simulated runs, Holm over the tied models, says it
   optimizes better at level 0.05 (:func:`advisor.backtest.paired_surrogate_test`);
@@ -98,9 +98,11 @@ def rules(m: dict) -> dict:
     if not tied:
         return {}
     out = {"calibration leader": leader}
-    sc = {n: m["backtest_score"].get(n) for n in tied}
-    if all(v is not None for v in sc.values()):
-        out["backtest score"] = min(tied, key=lambda n: (sc[n], m["crps"][n]))
+    sc = {n: m["backtest_score"].get(n) for n in tied if m["backtest_score"].get(n) is not None}
+    if len(sc) > 1:
+        # the former rule applied to the tied models the backtest ran (it needed all of
+        # the tie group backtested, which thorough mode does for up to three models)
+        out["backtest score"] = min(sc, key=lambda n: (sc[n], m["crps"][n]))
     cands = [n for n in tied if n != leader and n in m["default_runs"]]
     if leader in m["default_runs"] and cands:
         test = paired_surrogate_test(m["default_runs"], leader, cands)

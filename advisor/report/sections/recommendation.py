@@ -84,7 +84,6 @@ def decision_texts(v: _View) -> list[str]:
     rec = v.d.get("recommendation") or {}
     out = []
     st = rec.get("acquisition_statement")
-    test = rec.get("acquisition_test") or {}
     if st:
         word = rec.get("acquisition_evidence")
         extra = f" Evidence word: <i>{_e(word)}</i>." if word else ""
