@@ -171,3 +171,39 @@ def _crps(y, m, s):
     # Gneiting & Raftery (2007) closed form of the Gaussian CRPS, with scipy's normal
     z = (y - m) / s
     return s * (z * (2 * stats.norm.cdf(z) - 1) + 2 * stats.norm.pdf(z) - 1 / np.sqrt(np.pi))
+
+
+def test_the_report_states_the_pair_the_disagreement_and_the_acquisition_source():
+    # The recommendation payload built from a real ranking, a pair and a disagreement,
+    # and the sentences the PDF's first page prints from it.
+    from types import SimpleNamespace
+
+    from advisor.ranking import rank_surrogates
+    from advisor.report.sections.recommendation import decision_texts, headline
+
+    rng = np.random.default_rng(24)
+    y = rng.normal(size=200)
+    fold = np.arange(200) % 5
+    preds = {"gp": _entry(y, y + rng.normal(0, 0.3, 200), 0.3, fold),
+             "forest": _entry(y, y + rng.normal(0, 0.32, 200), 0.33, fold)}
+    ranking = rank_surrogates(preds, {}, {"gp": 1.0, "forest": 1.0})
+    table = ranking.table
+    other = next(n for n in preds if n != ranking.leader)
+    bt = _backtest(np.random.default_rng(25), {ranking.leader: 0.0, other: -0.3})
+    assert decision.close_candidates(table) == [other]
+    test = decision.optimization_test(bt, ranking.leader, decision.close_candidates(table))
+    _, _, pair = decision.tie_and_pair(table, test)
+    dis = {"disagree": True, "crps_leader": ranking.leader, "nll_leader": other,
+           "statement": "NLL and CRPS disagree about the leader."}
+    rec = decision.recommendation(ranking, None, test=test, pair=pair, disagreement=dis,
+                                  schemes=decision.scheme_summary("forward", {}, table))
+    assert rec["pair"]["optimization"] == other and rec["surrogate"] == ranking.leader
+    assert rec["acquisition_source"] == "default"
+    view = SimpleNamespace(d={"recommendation": rec, "validation": {
+        "statement": "forward chaining decided the ranking"}})
+    text = " ".join(decision_texts(view))
+    assert "The pair." in text and "for the optimization loop" in text
+    assert "Scores disagree." in text and "Forward chaining decided" in text
+    assert "did not run" in text
+    assert "did not test it" in headline(view)
+    assert "chosen by the acquisition backtest" not in headline(view)
