@@ -350,10 +350,13 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
             else "mean CRPS", "winner": leader,
             "reason": (f"{leader} optimizes significantly better in the simulated "
                        "campaigns than the calibration leader" if won else
-                       "no tied model optimizes significantly better than the calibration "
-                       "leader in the simulated campaigns (or the backtest did not test "
-                       "them), so mean CRPS keeps its order; a backtest score without a "
-                       "significant paired test breaks no tie")}
+                       ("no tied model optimizes significantly better than the "
+                        "calibration leader in the simulated campaigns"
+                        if test is not None else
+                        "the paired backtest test did not run for the tied models (no "
+                        "backtest, or no simulated runs for the leader)")
+                       + ", so mean CRPS keeps its order; a backtest score without a "
+                         "significant paired test breaks no tie")}
         reasons.append("tie-break: " + extra["tie_break"]["reason"])
     if pair is not None:
         reasons.append("pair: " + pair["statement"])
