@@ -402,9 +402,11 @@ def _confidence(top, rows, ordered, tie_winner=None, tie_evidence=None):
         if top == tie_winner:
             how = ("the acquisition backtest breaks the tie: "
                    + (tie_evidence or "the paired test says it optimizes better"))
-        else:
+        elif tie_evidence:
             how = ("mean CRPS keeps its order: no tied model optimizes significantly "
-                   "better in the backtest" + (f" ({tie_evidence})" if tie_evidence else ""))
+                   f"better in the backtest ({tie_evidence})")
+        else:
+            how = "mean CRPS keeps its order (no paired backtest test of the tied models)"
         text = (f"{top} is statistically tied with {', '.join(ties)} on held-out CRPS "
                 f"(95% model confidence set); {how}. "
                 f"Probability of being best {pb:.2f}.")
