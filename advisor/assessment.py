@@ -27,7 +27,9 @@ from typing import Callable, Sequence
 import numpy as np
 import pandas as pd
 
+from . import decision
 from ._version import __version__
+from .decision import DEFAULT_ACQUISITION
 from .errors import UsageError
 from .execution import Executor, task_seed
 from .logs import TrialTable
@@ -40,9 +42,6 @@ from .validation import choose_scheme
 
 __all__ = ["assess", "Assessment", "DEFAULT_ACQUISITION"]
 
-#: Used until the backtest has chosen: EI with a small xi is the most common default in
-#: practice (Lizotte 2008 found xi = 0.01 a robust choice).
-DEFAULT_ACQUISITION = {"name": "ei", "params": {"xi": 0.01}}
 
 
 @dataclass
@@ -320,7 +319,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     # the failure model first: the simulated campaigns fail where it says
     feasibility_out = _feasibility(trials, scheme.name, seed=seed, quick=quick,
                                    executor=executor)
-    backtest_out = None
+    backtest_out, opt_test, pair = None, None, None
     t_bt = time.perf_counter()
     if backtest and ranking.leader is not None:
         candidates = _backtest_candidates(ranking, quick)
@@ -329,13 +328,28 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
                                          quick=quick, budget=budget, batch=batch,
                                          executor=executor,
                                          failure_model=(feasibility_out or {}).get("_model"))
-            scores = {n: backtest_out["per_surrogate"][n]["score"] for n in candidates
-                      if backtest_out["per_surrogate"].get(n, {}).get("score") is not None}
-            ranking = rank_surrogates(preds, fail_text, fit_s, backtest_score=scores,
-                                      **rank_kwargs)
+            # Ties and the pair: only the paired test over the same simulated runs
+            # decides (advisor.decision); a backtest score alone reorders nothing.
+            opt_test = decision.optimization_test(
+                backtest_out, ranking.leader, decision.close_candidates(ranking.table))
+            chosen = {n: (c.get("decision") or {}).get("chosen") for n, c in
+                      backtest_out["per_surrogate"].items()}
+            winner, evidence, pair = decision.tie_and_pair(ranking.table, opt_test, chosen)
+            if opt_test is not None:
+                scores = {n: backtest_out["per_surrogate"][n]["score"] for n in candidates
+                          if backtest_out["per_surrogate"].get(n, {}).get("score")
+                          is not None}
+                ranking = rank_surrogates(preds, fail_text, fit_s, backtest_score=scores,
+                                          tie_winner=winner, tie_evidence=evidence,
+                                          **rank_kwargs)
     t_bt = time.perf_counter() - t_bt
 
-    rec = _recommendation(ranking, backtest_out)
+    schemes = decision.scheme_summary(scheme.name, by_scheme, ranking.table)
+    disagreement = decision.score_disagreement(
+        preds, ranking.table, rank_kwargs["blocks"], task_seed(seed, "score-disagreement"),
+        rank_kwargs["scoring_scales"])
+    rec = decision.recommendation(ranking, backtest_out, test=opt_test, pair=pair,
+                                  disagreement=disagreement, schemes=schemes)
     t_plan = time.perf_counter()
     planning_out, proposals = None, None
     if plan and rec["surrogate"] is not None:
@@ -358,7 +372,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
                                        else None),
                     "ranking_blocks": ranking.mcs,
                     "secondary": secondary,
-                    "metrics_by_scheme": by_scheme},
+                    "metrics_by_scheme": by_scheme, **schemes},
         predictions=pd.DataFrame(pred_rows, columns=["surrogate", "fold", "row", "y",
                                                      "mean", "std"]),
         fold_metrics=pd.DataFrame(fold_rows), metrics=metrics, intervals=intervals,
@@ -388,69 +402,6 @@ def _feasibility(trials, scheme: str, *, seed, quick, executor):
                 "skipped": "the failure model could not be fitted", "chosen": None}
 
 
-def _recommendation(ranking, backtest_out) -> dict:
-    table = ranking.table
-    leader = ranking.leader
-    if leader is None:
-        return {"surrogate": None, "acquisition": dict(DEFAULT_ACQUISITION),
-                "acquisition_source": "default", "variance_scale": 1.0,
-                "confidence": "none", "statement": ranking.statement,
-                "runner_up": None, "reasons": [ranking.statement]}
-    row = table.set_index("surrogate").loc[leader]
-    ok = table[table["status"] == "ok"]
-    runner = ok["surrogate"].iloc[1] if len(ok) > 1 else None
-    acq = dict(DEFAULT_ACQUISITION)
-    source = "default"
-    reasons = list(ranking.reasons.get(leader, []))
-    choice = (backtest_out or {}).get("per_surrogate", {}).get(leader)
-    decision = (choice or {}).get("decision") or {}
-    if choice and choice.get("acquisition") and decision.get("chosen"):
-        # the paired test against the default decides (advisor.backtest._decision)
-        source = "backtest"
-        if decision.get("beats_default"):
-            cmp = next(c for c in decision["comparisons"] if c["label"] == decision["chosen"])
-            acq = _setting_dict(backtest_out, decision["chosen"]) or acq
-            reasons.append(f"acquisition {decision['chosen']}: beats the default EI "
-                           f"xi=0.01 on the same {cmp['runs']} {decision['experiment']} "
-                           f"runs (mean AUC difference {cmp['mean_difference']:.3f}, "
-                           f"Holm-adjusted p = {cmp['p_holm']:.3g} < {decision['alpha']})")
-        else:
-            best_p = min((c["p_holm"] for c in decision["comparisons"]), default=None)
-            reasons.append("acquisition EI xi=0.01 (the default): the logs give no reason "
-                           "to change it; no setting beats it at level "
-                           f"{decision['alpha']} ({decision['test']}"
-                           + ("" if best_p is None else f", smallest adjusted p = {best_p:.3g}")
-                           + ")")
-    elif backtest_out is not None:
-        reasons.append("acquisition setting is a default (expected improvement, xi = 0.01): "
-                       f"the backtest did not cover {leader} and the default without error")
-    else:
-        reasons.append("acquisition setting is a default (expected improvement, xi = 0.01): "
-                       "the acquisition backtest did not run")
-    acq_strength = _acquisition_strength(decision) if source == "backtest" else None
-    if acq_strength is not None:
-        reasons.append(f"strength of the acquisition evidence: {acq_strength[0]} "
-                       f"({acq_strength[1]})")
-    test_out = None if source != "backtest" else {
-        "test": decision.get("test"), "level": decision.get("alpha"),
-        "experiment": decision.get("experiment"), "metric": decision.get("metric"),
-        "default": decision.get("default"), "beats_default": decision.get("beats_default"),
-        "p_values": {c["label"]: c["p_value"] for c in decision.get("comparisons", [])},
-        "p_holm": {c["label"]: c["p_holm"] for c in decision.get("comparisons", [])},
-        "power_at_0.1": decision.get("power_at_0.1")}
-    return {"surrogate": leader, "acquisition": acq, "acquisition_source": source,
-            "acquisition_evidence": None if acq_strength is None else acq_strength[0],
-            "acquisition_test": test_out,
-            "acquisition_margins": None if not (choice and choice.get("acquisition")) else {
-                "over_runner_up": choice.get("margin_over_runner_up"),
-                "over_random": choice.get("margin_over_random"),
-                "runner_up": (choice.get("runner_up") or {}).get("label")},
-            "variance_scale": float(row["variance_scale"]),
-            "confidence": ranking.confidence, "statement": ranking.statement,
-            "runner_up": runner, "reasons": reasons,
-            "cheaper_alternatives_by_fit_seconds": ranking.cheaper_by_fit_seconds}
-
-
 def _replicate_noise(trials: TrialTable):
     fn = getattr(trials, "replicate_noise", None)
     if fn is None:
@@ -461,23 +412,26 @@ def _replicate_noise(trials: TrialTable):
         return None
 
 
-_CANDIDATE_RULE = ("backtested: the models tied with the calibration leader (up to 2 in "
-                   "quick mode, 3 otherwise), then the next guard-passing model when "
-                   "nothing is tied, and the default GP when it passed the guards; "
-                   "the other models cannot change the recommendation")
+_CANDIDATE_RULE = ("backtested: the calibration leader and the models close to it (tied "
+                   "with it, then within 10% of its mean CRPS; up to 2 models in all in "
+                   "quick mode, 3 otherwise), and the default GP when it passed the "
+                   "guards; the other models cannot change the recommendation")
 
 
 def _backtest_candidates(ranking, quick: bool) -> list[str]:
-    """The models that can matter: those tied with the leader (the leader first), the
-    runner-up when nothing is tied, and the default GP when it passes the guard rails.
-    Backtesting refits a model at every step, so the grid is kept to these."""
+    """The models that can matter: the leader, the models close to it (the tie group
+    and the pair candidates, :func:`advisor.decision.close_candidates`), and the default
+    GP when it passes the guard rails.  Backtesting refits a model at every step, so
+    the grid is kept to these."""
     t = ranking.table
     ok = t[(t["status"] == "ok")]
     ok = ok[ok["guard_coverage"].astype(bool) & ok["guard_order"].astype(bool)]
     cap = 2 if quick else 3
     names = ok["surrogate"].tolist()
-    tied = ok[ok["tied_with_leader"].astype(bool)]["surrogate"].tolist()
-    out = tied[:cap] if len(tied) > 1 else names[:2]
+    if ranking.leader not in names:
+        out = names[:1]
+    else:
+        out = ([ranking.leader] + decision.close_candidates(t, ranking.leader))[:cap]
     if "gp" in names and "gp" not in out:
         out.append("gp")
     return out
@@ -580,31 +534,6 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         except Exception as exc:
             out["errors"]["proposals"] = f"{type(exc).__name__}: {exc}".splitlines()[0][:300]
     return out, proposals
-
-
-def _setting_dict(backtest_out, label):
-    for st in backtest_out.get("settings") or []:
-        if st.get("label") == label:
-            return {"name": st["name"], "params": dict(st.get("params") or {})}
-    return None
-
-
-def _acquisition_strength(decision: dict) -> tuple[str, str]:
-    """Plain words for the paired test of the settings against the default.
-
-    *clear*: a setting beats the default at the stated level (Holm-adjusted);
-    *weak*: none does, but the best one-sided raw p-value is below the level (a hint
-    the multiplicity correction does not let through); *none*: no setting comes near.
-    With *weak* or *none* the default is recommended.
-    """
-    comps = decision.get("comparisons") or []
-    alpha = decision.get("alpha", 0.05)
-    if decision.get("beats_default"):
-        return "clear", f"beats the default at Holm-adjusted level {alpha}"
-    if comps and min(c["p_value"] for c in comps) < alpha:
-        return "weak", ("a setting looks better than the default before the correction "
-                        "for the number of settings, not after; the default stands")
-    return "none", "no setting beats the default on these logs; the default stands"
 
 
 def _other_schemes(primary: str, trials) -> list[str]:

@@ -32,13 +32,20 @@ The rule, in order (also in the README):
    the same replicates in which its mean CRPS is the lowest (the leader re-selected in
    every replicate).
 5. **Tie-breakers.**  Within the group tied with the leader, the acquisition backtest
-   decides when it has run for all of them (Foldager, Jordahn, Hansen & Andersen 2023:
-   calibration tracks optimization regret across model types but not within one);
-   otherwise mean CRPS keeps its order.  Cost is the last tie-breaker (equal scores),
-   and a tied model that fits at least three times faster than the one ranked above it
-   is named as the cheaper alternative.  Measured seconds never reorder models on their
-   own: timings vary between runs and machines, and the ranking must be reproducible.
-   Models not tied follow in order of mean CRPS.
+   decides only with evidence that has power: a tied model goes first when the paired
+   test over the same simulated campaigns (the default setting, EI xi = 0.01, on each
+   model; runs paired by stand-in and start; one-sided Wilcoxon signed-rank, Holm over
+   the candidates, level 0.05; :func:`advisor.backtest.paired_surrogate_test`) says it
+   optimizes better than the leader (Foldager, Jordahn, Hansen & Andersen 2023:
+   calibration tracks optimization regret across model types but not within one).
+   Otherwise the tie keeps the order of mean CRPS (the point estimate still favours
+   the leader), and models with equal CRPS go by :data:`SIMPLICITY_ORDER` (the simpler,
+   more robust model first).  A backtest score without a significant paired test never
+   reorders models: with 8 paired runs it picks between equal models at random.  Cost
+   is the last tie-breaker, and a tied model that fits at least three times faster than
+   the one ranked above it is named as the cheaper alternative.  Measured seconds never
+   reorder models on their own: timings vary between runs and machines, and the
+   ranking must be reproducible.  Models not tied follow in order of mean CRPS.
 
 The confidence words come from the largest MCS p-value among the models other than the
 recommended one (how plausible it still is that another model is as good): *high* when
@@ -60,7 +67,7 @@ from .scoring import (block_bootstrap_means, has_point_scores, point_scores,
                       stratified_bootstrap_index)
 
 __all__ = ["rank_surrogates", "Ranking", "COVERAGE_GUARD", "N_BOOTSTRAP", "MCS_LEVEL",
-           "model_confidence_set", "CONFIDENCE_THRESHOLDS"]
+           "model_confidence_set", "CONFIDENCE_THRESHOLDS", "SIMPLICITY_ORDER", "simplicity_rank"]
 
 COVERAGE_GUARD = (0.80, 0.97)
 N_BOOTSTRAP = 2000
@@ -68,6 +75,16 @@ N_BOOTSTRAP = 2000
 MCS_LEVEL = 0.05
 #: Largest MCS p-value of another model below which the word applies.
 CONFIDENCE_THRESHOLDS = {"high": 0.05, "moderate": 0.20}
+#: Simpler / more robust first: the built-in models by how much can go wrong in a fit.
+#: The GP family has a handful of hyperparameters and a closed-form predictive
+#: (the campaign and warped GPs add one offset variance or one transform); the forest
+#: has no gradient-trained weights but its variance is an ad-hoc tree spread; DNGO
+#: trains a network as a point estimate and keeps closed-form Bayesian linear
+#: regression on top; the ensemble, the sampled BNN and the neural process train
+#: many weights each (the BNN's sampler may not converge in quick mode; the neural
+#: process needs many related tasks).  Models not listed (user models) come last.
+SIMPLICITY_ORDER = ("gp", "campaign_gp", "warped_gp", "forest", "dngo", "ensemble", "bnn",
+                    "neural_process")
 
 
 def model_confidence_set(losses, blocks, n_draws: int, rng: np.random.Generator) -> np.ndarray:
@@ -136,6 +153,9 @@ class Ranking:
     #: Timing-based notes ("tied and fits 5x faster"), kept apart from ``reasons`` because
     #: they vary between runs; exported under a key containing "seconds".
     cheaper_by_fit_seconds: list[str] = field(default_factory=list)
+    #: The model a significant paired backtest test put first in the tie group (None:
+    #: mean CRPS kept its order).
+    tie_winner: str | None = None
     #: How ties were decided: MCS level, number of resampling blocks, stratification.
     mcs: dict = field(default_factory=dict)
 
@@ -176,7 +196,9 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
                     scaled_coverage: dict[str, float] | None = None,
                     backtest_score: dict[str, float] | None = None,
                     seed: int = 0, blocks=None,
-                    scoring_scales: dict | None = None) -> Ranking:
+                    scoring_scales: dict | None = None,
+                    tie_winner: str | None = None,
+                    tie_evidence: str | None = None) -> Ranking:
     """Apply the ranking rule of this module's docstring.
 
     Parameters
@@ -194,7 +216,13 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
         Cross-fitted scale factors; a model whose raw coverage misses the guard but whose
         scaled coverage (``scaled_coverage``) meets it is scored and recommended scaled.
     backtest_score : {name: score}, optional
-        Lower is better; breaks ties within the group tied with the leader.
+        Kept for callers of earlier versions; no longer reorders models (a backtest
+        score without a significant paired test picks between equal models at random).
+    tie_winner : str, optional
+        A model tied with the leader that the paired backtest test found to optimize
+        better than it (rule 5); it goes first within the tie group.
+    tie_evidence : str, optional
+        The test result in words (test, p-value, level) for the statement and reasons.
     blocks : array (n,), optional
         Resampling block of each point; default campaign × fold when ``preds`` carry
         ``campaign``, else the fold.
@@ -293,13 +321,15 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
         r = rows[n]
         guard_fail = not (r["guard_coverage"] and r["guard_order"])
         in_tie = r["tied_with_leader"] and not guard_fail
+        simple = simplicity_rank(n)
         if in_tie:
-            tied = [m for m in rows if rows[m]["tied_with_leader"]]
-            if all(backtest_score.get(m) is not None for m in tied):
-                return (0, 0, (backtest_score[n], r["crps"], r["fit_seconds"]))
-            return (0, 0, (0.0, r["crps"], r["fit_seconds"]))
-        return (int(guard_fail), 1, (0.0, r["crps"], r["fit_seconds"]))
+            return (0, 0, int(n != tie_winner), (r["crps"], simple, r["fit_seconds"]))
+        return (int(guard_fail), 1, 1, (r["crps"], simple, r["fit_seconds"]))
 
+    if tie_winner is not None and not (tie_winner in rows and rows[tie_winner].get(
+            "tied_with_leader") and rows[tie_winner]["guard_coverage"]
+            and rows[tie_winner]["guard_order"]):
+        tie_winner = None  # only a tied model passing the guard rails can break a tie
     ordered = sorted(rows, key=key)
     failed = sorted(failures, key=lambda n: len(failures[n]))
     for n in failed:
@@ -313,7 +343,7 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
     table.insert(1, "rank", np.arange(1, len(table) + 1))
 
     top = ordered[0] if ordered and rows[ordered[0]]["status"] == "ok" else None
-    confidence, statement = _confidence(top, rows, ordered, backtest_score)
+    confidence, statement = _confidence(top, rows, ordered, tie_winner, tie_evidence)
     cheaper: list[str] = []
     if top is not None:
         for n in ordered:
@@ -335,10 +365,15 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
         reasons[top].insert(0, statement)
     return Ranking(table=table, leader=top, confidence=confidence, statement=statement,
                    reasons=reasons, method=__doc__.split("The confidence")[0].strip(),
-                   cheaper_by_fit_seconds=cheaper, mcs=mcs_info)
+                   cheaper_by_fit_seconds=cheaper, mcs=mcs_info, tie_winner=tie_winner)
 
 
-def _confidence(top, rows, ordered, backtest_score):
+def simplicity_rank(name: str) -> int:
+    """Position in :data:`SIMPLICITY_ORDER` (user models after every built-in)."""
+    return SIMPLICITY_ORDER.index(name) if name in SIMPLICITY_ORDER else len(SIMPLICITY_ORDER)
+
+
+def _confidence(top, rows, ordered, tie_winner=None, tie_evidence=None):
     if top is None:
         return "none", "No surrogate produced usable predictions on every fold."
     r = rows[top]
@@ -364,9 +399,16 @@ def _confidence(top, rows, ordered, backtest_score):
         text = (f"{top} scores best, but no model passes the guard rails on coverage and "
                 "ordering; treat this as weak evidence.")
     elif ties:
-        how = ("the backtest" if top in backtest_score else "mean CRPS")
-        text = (f"{top} is statistically tied with {', '.join(ties)} on held-out CRPS; "
-                f"{how} breaks the tie (95% model confidence set). "
+        if top == tie_winner:
+            how = ("the acquisition backtest breaks the tie: "
+                   + (tie_evidence or "the paired test says it optimizes better"))
+        elif tie_evidence:
+            how = ("mean CRPS keeps its order: no tied model optimizes significantly "
+                   f"better in the backtest ({tie_evidence})")
+        else:
+            how = "mean CRPS keeps its order (no paired backtest test of the tied models)"
+        text = (f"{top} is statistically tied with {', '.join(ties)} on held-out CRPS "
+                f"(95% model confidence set); {how}. "
                 f"Probability of being best {pb:.2f}.")
     elif others:
         ru = others[0]

@@ -24,6 +24,15 @@ def test_thorough_mode_scores_every_applicable_scheme(trials):
     assert [s["scheme"] for s in a.validation["secondary"]] == ["campaign", "kfold"]
     for scheme in by.values():
         assert set(scheme) == set(CHEAP)
+    # the primary scheme decides and the report says so, with each scheme's CRPS leader
+    # (the lowest pooled CRPS under that scheme among the guard-passing models)
+    assert a.validation["deciding_scheme"] == "forward"
+    ok = set(a.ranking[a.ranking["guard_coverage"] & a.ranking["guard_order"]]["surrogate"])
+    for name, scores in by.items():
+        pool = {n: m["crps"] for n, m in scores.items() if n in (ok or set(CHEAP))}
+        assert a.validation["leaders_by_scheme"][name] == min(pool, key=pool.get)
+    assert a.validation["statement"].startswith("forward chaining decided")
+    assert a.recommendation["deciding_scheme"] == "forward"
 
 
 def test_quick_mode_scores_the_primary_scheme_only(trials):
@@ -39,3 +48,10 @@ def test_recommendation_falls_back_to_a_stated_default_without_backtest(trials):
     rec = a.recommendation
     assert rec["acquisition_source"] == "default"
     assert any("default" in r for r in rec["reasons"])
+    assert "did not run" in rec["acquisition_statement"]
+    # without a backtest nothing is tested: no pair, and a tie keeps the CRPS order
+    assert rec["pair"] is None and rec["optimization_test"] is None
+    if rec["tie_break"] is not None:
+        assert rec["tie_break"]["decided_by"] == "mean CRPS"
+    # one model passes the guard rails (the baseline cannot order): nothing to disagree
+    assert rec["score_disagreement"] is None

@@ -53,12 +53,26 @@ def test_identical_models_are_tied_and_confidence_is_not_high():
     assert r.confidence != "high"
 
 
-def test_backtest_breaks_a_tie():
+def test_only_a_significant_paired_test_breaks_a_tie():
+    # Rule 5: a backtest score alone (the former tie-breaker, which picked between
+    # equal models at random, tests/test_decision.py) reorders nothing; a tied model
+    # the paired test found better goes first, and a model outside the tie cannot.
     rng = np.random.default_rng(2)
     y, mu, fold = _preds(rng)
-    preds = {"a": _entry(y, mu, 0.3, fold), "b": _entry(y, mu + 1e-6, 0.3, fold)}
-    r = rank_surrogates(preds, {}, {"a": 1.0, "b": 1.0}, backtest_score={"a": 0.5, "b": 0.2})
-    assert r.table["surrogate"].iloc[0] == "b"
+    preds = {"a": _entry(y, mu, 0.3, fold), "b": _entry(y, mu + 1e-6, 0.3, fold),
+             "c": _entry(y, mu + rng.normal(0, 0.6, len(y)), 0.7, fold)}
+    for p in preds.values():
+        p["campaign"] = (np.arange(len(y)) // 5) % 4
+    fit = {"a": 1.0, "b": 1.0, "c": 1.0}
+    r = rank_surrogates(preds, {}, fit, backtest_score={"a": 0.5, "b": 0.2})
+    assert r.table["surrogate"].iloc[0] == "a" and r.tie_winner is None
+    assert "mean CRPS keeps its order" in r.statement
+    r = rank_surrogates(preds, {}, fit, tie_winner="b", tie_evidence="p = 0.004 < 0.05")
+    assert r.table["surrogate"].iloc[0] == "b" and r.tie_winner == "b"
+    assert "p = 0.004" in r.statement and r.confidence == "low"
+    assert not r.table.set_index("surrogate").loc["c", "tied_with_leader"]
+    r = rank_surrogates(preds, {}, fit, tie_winner="c")
+    assert r.table["surrogate"].iloc[0] == "a" and r.tie_winner is None
 
 
 def test_overconfident_model_is_scaled_when_scale_rescues_coverage():

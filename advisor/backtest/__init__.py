@@ -12,8 +12,10 @@ are in :mod:`advisor.backtest._campaigns`'s docstring.
 from ._campaigns import (BacktestPlan, StandIns, campaign_pools, choose_setting, plan_for,
                          posterior_standins, replay_pool, run_backtest)
 from ._failures import FailureModel
-from ._decision import ALPHA, TEST_NAME, holm_adjust, paired_decision, paired_power
+from ._decision import (ALPHA, SURROGATE_TEST_NAME, TEST_NAME, holm_adjust, paired_decision,
+                        paired_power, paired_surrogate_test)
 
 __all__ = ["BacktestPlan", "plan_for", "run_backtest", "choose_setting", "replay_pool",
            "posterior_standins", "StandIns", "campaign_pools", "paired_decision",
-           "holm_adjust", "paired_power", "ALPHA", "TEST_NAME", "FailureModel"]
+           "holm_adjust", "paired_power", "paired_surrogate_test", "ALPHA", "TEST_NAME",
+           "SURROGATE_TEST_NAME", "FailureModel"]

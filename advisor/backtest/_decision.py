@@ -8,6 +8,13 @@ controlled by Holm's step-down procedure (Holm 1979) at family-wise level ``alph
 A non-default setting is recommended only when its Holm-adjusted p-value is below
 ``alpha``; otherwise the default stands and the logs give no reason to change it.
 
+The same test compares *surrogates* (:func:`paired_surrogate_test`): each candidate's
+default-setting runs against the reference model's over the same stand-ins and starts
+(the simulated campaigns give every surrogate the same starts and noise), one-sided
+"the candidate's AUC is lower", Holm over the candidates.  The ranking uses it to let
+the backtest break a calibration tie, and the recommendation to name a pair (one model
+for calibration, another for optimization), only when it is significant.
+
 Power (:func:`paired_power`): the chance that a true mean difference of ``delta`` in
 normalized regret is detected at the Holm level of the grid, measured by simulation:
 the observed paired differences, centred and shifted by ``-delta``, resampled with
@@ -26,10 +33,14 @@ from __future__ import annotations
 import numpy as np
 from scipy.stats import wilcoxon
 
-__all__ = ["paired_decision", "holm_adjust", "paired_power", "ALPHA", "TEST_NAME"]
+__all__ = ["paired_decision", "holm_adjust", "paired_power", "paired_surrogate_test",
+           "ALPHA", "TEST_NAME", "SURROGATE_TEST_NAME"]
 
 ALPHA = 0.05
 TEST_NAME = "one-sided Wilcoxon signed-rank vs the default, Holm-adjusted"
+SURROGATE_TEST_NAME = ("one-sided Wilcoxon signed-rank of the default setting's "
+                       "normalized-regret AUC vs the reference model over the same "
+                       "simulated runs, Holm-adjusted over the candidates")
 
 
 def holm_adjust(p) -> np.ndarray:
@@ -119,3 +130,47 @@ def paired_power(diffs, n_settings: int, rng: np.random.Generator, delta: float 
         d = rng.choice(centred, size=n, replace=True) - delta
         hits += _one_sided_p(d) < level
     return hits / int(reps)
+
+
+def paired_surrogate_test(values: dict, reference: str, candidates,
+                          alpha: float = ALPHA) -> dict:
+    """Does another surrogate optimize better than ``reference`` on the same runs?
+
+    Parameters
+    ----------
+    values : {surrogate: {run key: float}}
+        Each model's normalized-regret AUC with the default setting (lower is better);
+        run keys (stand-in, start) pair the runs across models.
+    reference : str
+        The model to beat (the calibration leader).
+    candidates : iterable of str
+        Models compared with ``reference`` (the reference itself is skipped).
+
+    Returns
+    -------
+    dict
+        ``test``, ``alpha``, ``reference``, ``comparisons``: [{surrogate, runs,
+        mean_difference (candidate - reference), p_value (one-sided Wilcoxon, zero
+        differences dropped), p_holm, significant}], ``better``: the significant
+        candidate with the lowest mean difference, or None.  A candidate without paired
+        runs gets p = 1.
+    """
+    base = values.get(reference) or {}
+    rows = []
+    for name in dict.fromkeys(candidates):
+        if name == reference:
+            continue
+        runs = values.get(name) or {}
+        keys = sorted(set(runs) & set(base))
+        d = np.array([runs[k] - base[k] for k in keys], float)
+        rows.append({"surrogate": name, "runs": int(len(keys)),
+                     "mean_difference": float(d.mean()) if d.size else None,
+                     "p_value": _one_sided_p(d)})
+    adj = holm_adjust([r["p_value"] for r in rows]) if rows else []
+    for r, a in zip(rows, adj):
+        r["p_holm"] = float(a)
+        r["significant"] = bool(a < alpha and r["runs"] > 0)
+    winners = [r for r in rows if r["significant"]]
+    better = min(winners, key=lambda r: r["mean_difference"])["surrogate"] if winners else None
+    return {"test": SURROGATE_TEST_NAME, "alpha": alpha, "reference": reference,
+            "comparisons": rows, "better": better}

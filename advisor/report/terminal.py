@@ -27,7 +27,8 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
         con.print(f"  note: {escape(note)}")
     v = d["validation"]
     con.print(f"validation: {v['scheme']} ({v['reason']}); {v['n_folds']} folds, "
-              f"{v['tested_trials']} held-out trials")
+              f"{v['tested_trials']} held-out trials"
+              + (f"; {escape(v['statement'])}" if v.get("statement") else ""))
     t = Table(title="Surrogates, best first", header_style="bold")
     for col in ("#", "surrogate", "CRPS", "95% CI", "NLL", "cov 90", "cal err",
                 "Spearman", "P(best)", "fit s", "note"):
@@ -64,21 +65,31 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
     scale = rec.get("variance_scale") or 1.0
     scale_txt = f", standard deviation scaled by {scale:.2f}" if abs(scale - 1) > 1e-9 else ""
     acq_txt = f"{acq['name']}({params})" if params else acq["name"]
+    test = rec.get("acquisition_test") or {}
+    if rec.get("acquisition_source") != "backtest":
+        src = "a default, not tested"
+    elif test.get("beats_default"):
+        src = f"beats the default at level {test.get('level')}"
+    else:
+        src = f"the default, kept: nothing beats it at level {test.get('level')}"
     con.print(f"[bold]Recommendation:[/] {rec['surrogate']}{scale_txt}, acquisition "
-              f"{acq_txt} ({rec['acquisition_source']}); "
-              f"confidence [bold]{rec['confidence']}[/].")
+              f"{acq_txt} ({src}); confidence [bold]{rec['confidence']}[/].")
+    pair = rec.get("pair")
+    if pair:
+        con.print(f"[bold]The pair:[/] {pair['calibration']} for calibrated predictions, "
+                  f"{pair['optimization']} ({pair.get('optimization_acquisition')}) for the "
+                  f"optimization loop (paired test p = {pair['p_holm']:.3g} < "
+                  f"{pair['level']}).")
+    dis = rec.get("score_disagreement") or {}
+    if dis.get("disagree"):
+        con.print(f"[bold]Scores disagree:[/] CRPS leader {dis['crps_leader']}, NLL leader "
+                  f"{dis['nll_leader']} (p = {dis['p_value']:.3g}"
+                  + (", significant" if dis.get("significant") else ", not significant")
+                  + ").")
     for reason in rec.get("reasons", []):
         con.print(f"  - {escape(reason)}")
     for note in rec.get("cheaper_alternatives_by_fit_seconds") or []:
         con.print(f"  - {escape(note)}")
-    test = rec.get("acquisition_test") or {}
-    if test.get("test"):
-        power = test.get("power_at_0.1")
-        power_txt = "n/a" if power is None else f"{power:.2f}"
-        con.print(f"  - acquisition evidence [bold]{rec.get('acquisition_evidence')}[/]: "
-                  f"{escape(str(test['test']))} at level {test.get('level')} on the "
-                  f"{test.get('experiment')} runs; power to detect a 0.1 AUC gain "
-                  f"{power_txt}")
     for r in d["ranking"][1:]:
         if r.get("reasons"):
             con.print(f"  {r['surrogate']}: {escape(r['reasons'][0])}")

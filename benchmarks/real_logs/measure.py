@@ -55,20 +55,47 @@ def _truth(trials, new_frame, names, seed: int, sign: float, extra_frame=None,
             model.fit(X, y)
             mean, std = model.predict(trials.space.encode(new_frame, enc))
             s = advisor.score_predictions(y_new, np.asarray(mean), np.asarray(std))
-            out[n] = {"nll": float(s["nll"]), "crps": float(s["crps"])}
+            out[n] = {"nll": float(s["nll"]), "crps": float(s["crps"]),
+                      **_optimization_truth(y_new, np.asarray(mean),
+                                            new_frame["campaign"].to_numpy())}
         except Exception as exc:  # a failing model is recorded, not fatal
             out[n] = {"nll": None, "crps": None, "error": f"{type(exc).__name__}: {exc}"[:200]}
     return out
+
+
+def _optimization_truth(y, mean, campaign) -> dict:
+    """What the model's predictions are worth to an optimizer on the new campaigns (a
+    proxy: no new black-box evaluations).  ``pool_regret``: in each new campaign, the
+    normalized regret (y - best) / (worst - best) of the trial the model predicts best,
+    averaged over campaigns; ``spearman``: rank correlation of predicted mean and
+    objective within each campaign, averaged."""
+    regrets, rhos = [], []
+    for c in np.unique(campaign):
+        sel = campaign == c
+        yc, mc = y[sel], mean[sel]
+        span = yc.max() - yc.min()
+        if span > 0:
+            regrets.append(float((yc[np.argmin(mc)] - yc.min()) / span))
+        if np.ptp(mc) > 0 and np.ptp(yc) > 0:
+            rhos.append(float(stats.spearmanr(mc, yc)[0]))
+    return {"pool_regret": float(np.mean(regrets)) if regrets else None,
+            "spearman": float(np.mean(rhos)) if rhos else None}
 
 
 def _cv(trials, names, seed: int, scheme: str) -> dict:
     a = advisor.assess(trials, seed=seed, quick=True, surrogates=names, validation=scheme,
                        jobs=1, backtest=False, plan=False)
     order = [r for r in a.ranking["surrogate"]]
+    t = a.ranking
+    tied = [r["surrogate"] for r in t.to_dict("records") if r.get("status") == "ok"
+            and bool(r.get("tied_with_leader")) and bool(r.get("guard_coverage"))
+            and bool(r.get("guard_order"))]
     scores = {n: {"nll": _f(a.metrics.get(n, {}).get("nll")),
                   "crps": _f(a.metrics.get(n, {}).get("crps"))} for n in names}
     return {"scheme": a.validation["scheme"], "pick": a.recommendation["surrogate"],
-            "ranking": order, "scores": scores, "notes": a.to_dict().get("notes", [])}
+            "ranking": order, "tied": tied, "scores": scores,
+            "notes": a.to_dict().get("notes", []),
+            "score_disagreement": a.recommendation.get("score_disagreement")}
 
 
 def _f(v):
@@ -106,7 +133,8 @@ def measure_problem(name: str, n_per_campaign: int, seed: int = 0,
            "y_std": float(np.std(past[problem.objective].to_numpy(float))),
            "candidates": names, "truth": truth, "truth_within": within, "cv": cv,
            "pick": primary["pick"], "pick_scheme": primary["scheme"],
-           "ranking": primary["ranking"], "notes": primary["notes"]}
+           "ranking": primary["ranking"], "tied": primary["tied"],
+           "score_disagreement": primary["score_disagreement"], "notes": primary["notes"]}
     out["summary"] = summarize(out)
     return out
 

@@ -292,7 +292,9 @@ def _scheme_table(v: _View) -> list:
         cov = [_pct((by[s].get(n) or {}).get("coverage_90")) for s in schemes]
         rows.append(_cells([_name(n)] + crps + cov))
     w = (_TEXT_W - 38 * mm) / (len(head) - 1)
-    note = ("The ranking rests on the first scheme (" + _e(val.get("scheme", "")) + "). "
+    note = ("The ranking rests on the first scheme (" + _e(val.get("scheme", "")) + "); the "
+            "others are diagnostics: on the real-log benchmark forward chaining picked best "
+            "and averaging schemes did not help. "
             "Shuffled k-fold is usually the most optimistic: campaign trials cluster near "
             "the optimum, so a held-out trial tends to have a near twin in training.")
     return [_table(rows, [38 * mm] + [w] * (len(head) - 1)), _p(note, "small")]

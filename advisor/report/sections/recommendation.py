@@ -62,11 +62,53 @@ def headline(v: _View) -> str:
                    "(the variance scale fitted on held-out folds)")
     else:
         scaling = "use its predictive variances as they are (no scaling needed)"
-    src = rec.get("acquisition_source")
-    src_text = ("chosen by the acquisition backtest" if src == "backtest"
-                else "a default: the acquisition backtest did not choose one")
+    src_text = _acq_source_text(rec)
     return (f"Use the <b>{_e(sur)}</b> surrogate with "
             f"<b>{_e(_acq_text(rec.get('acquisition')))}</b> ({src_text}), and {scaling}.")
+
+
+def _acq_source_text(rec: dict) -> str:
+    """Where the acquisition setting came from, as the paired test decided it."""
+    test = rec.get("acquisition_test") or {}
+    level = test.get("level")
+    if rec.get("acquisition_source") != "backtest":
+        return "a default: the acquisition backtest did not test it"
+    if test.get("beats_default"):
+        return (f"chosen by the acquisition backtest: it beats the default at level "
+                f"{_num(level)} by a paired test")
+    return (f"the default, kept by the acquisition backtest: no setting beats it at "
+            f"level {_num(level)}")
+
+
+def decision_texts(v: _View) -> list[str]:
+    """How the recommendation was decided (paragraph markup, one per item): the
+    acquisition evidence with its test, level and power; the tie-break; the pair; the
+    NLL/CRPS disagreement; the validation scheme that decided."""
+    rec = v.d.get("recommendation") or {}
+    out = []
+    st = rec.get("acquisition_statement")
+    if st:
+        word = rec.get("acquisition_evidence")
+        extra = f" Evidence word: <i>{_e(word)}</i>." if word else ""
+        out.append(f"<b>Acquisition.</b> {_e(st)}.{extra}")
+    tb = rec.get("tie_break")
+    if tb:
+        out.append(f"<b>Tie.</b> {_e(', '.join(tb.get('tied') or []))} are statistically "
+                   f"tied on held-out CRPS; decided by {_e(tb.get('decided_by'))}: "
+                   f"{_e(tb.get('reason'))}.")
+    pair = rec.get("pair")
+    if pair:
+        out.append(f"<b>The pair.</b> For calibrated predictions use "
+                   f"<b>{_e(pair.get('calibration'))}</b>; for the optimization loop "
+                   f"<b>{_e(pair.get('optimization'))}</b> with "
+                   f"{_e(pair.get('optimization_acquisition'))}. {_e(pair.get('statement'))}.")
+    dis = rec.get("score_disagreement")
+    if dis and dis.get("disagree"):
+        out.append(f"<b>Scores disagree.</b> {_e(dis.get('statement'))}")
+    val = v.d.get("validation") or {}
+    if val.get("statement"):
+        out.append(f"<b>Validation.</b> {_e(val['statement'][0].upper() + val['statement'][1:])}.")
+    return out
 
 
 def confidence_text(v: _View) -> str:
@@ -93,6 +135,10 @@ def story(v: _View) -> list:
     if statement_text(v):
         story.append(_p(statement_text(v)))
     story.append(_p(runner_up_text(v)))
+    texts = decision_texts(v)
+    if texts:
+        story.append(Paragraph("How it was decided", _S["h2"]))
+        story += [_p(t) for t in texts]
     story.append(Paragraph("What this rests on", _S["h2"]))
     story.append(basis_table(v).to_pdf(
         [30 * mm, _TEXT_W - 30 * mm], zebra=False, long=False,

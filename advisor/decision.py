@@ -1,0 +1,385 @@
+"""The decision layer: how the calibration ranking, the backtest's paired tests and the
+validation schemes combine into the recommendation, and how it is stated.
+
+* **Ties** (ranking rule 5, :mod:`advisor.ranking`): within the group tied with the
+  calibration leader, a model goes first only when the paired backtest test says it
+  optimizes better (:func:`optimization_test`); otherwise mean CRPS keeps its order.
+* **The pair**: when a model *close* to the calibration leader — tied with it (95% model
+  confidence set) or with a mean held-out CRPS within :data:`PAIR_MARGIN` (10%) of the
+  leader's — optimizes better by the same paired test, the recommendation names the
+  pair: the leader for calibrated predictions, the other for the optimization loop.
+  The table keeps the calibration order (calibration tracks optimization regret across
+  model types but not within one: Foldager, Jordahn, Hansen & Andersen 2023).
+* **The test** (both uses): each close model's normalized-regret AUC with the default
+  setting (EI, xi = 0.01) against the leader's over the same simulated campaigns
+  (paired by stand-in and start; every surrogate gets the same starts and noise),
+  one-sided Wilcoxon signed-rank (Wilcoxon 1945), Holm over the close models (Holm
+  1979), level 0.05 (:func:`advisor.backtest.paired_surrogate_test`).  The pool replay
+  never decides here (its runs start from each campaign's logged best region).
+* **Score disagreement** (:func:`score_disagreement`): the leaders by NLL and by CRPS
+  among the models passing the guard rails; when they differ, the NLL difference of the
+  two is tested with the same sign-flip test over blocks as the model confidence set.
+* **Schemes** (:func:`scheme_summary`): the primary scheme decides (forward chaining
+  when the log has an order column); the others, scored in thorough mode only, are
+  diagnostics.  On the real-log benchmark forward chaining had the lowest selection
+  regret and averaging it with leave-one-campaign-out was worse
+  (``benchmarks/results/real_logs_score_choice.json``, README "Real-log benchmark").
+
+References
+----------
+Foldager, J., Jordahn, M., Hansen, L. K. & Andersen, M. R. (2023). On the role of model
+uncertainties in Bayesian optimization. UAI 2023, PMLR 216, 592-601.
+Wilcoxon, F. (1945). Biometrics Bulletin 1, 80-83.  Holm, S. (1979). Scand. J. Statist.
+6, 65-70.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .backtest import ALPHA, SURROGATE_TEST_NAME, paired_surrogate_test
+from .ranking import MCS_LEVEL, model_confidence_set
+from .scoring import point_scores
+
+__all__ = ["PAIR_MARGIN", "DEFAULT_ACQUISITION", "DEFAULT_LABEL", "close_candidates",
+           "default_setting_runs", "optimization_test", "tie_and_pair",
+           "score_disagreement", "scheme_summary", "recommendation", "acquisition_strength"]
+
+#: A model is *close* to the calibration leader when tied with it or when its mean
+#: held-out CRPS is at most this fraction above the leader's (our choice; the same 10%
+#: as the score-choice table's "within 10% of the best CRPS" rules).
+PAIR_MARGIN = 0.10
+#: Used until the backtest has chosen: EI with a small xi is the most common default in
+#: practice (Lizotte 2008 found xi = 0.01 a robust choice).
+DEFAULT_ACQUISITION = {"name": "ei", "params": {"xi": 0.01}}
+DEFAULT_LABEL = "EI xi=0.01"
+
+
+def _passing_rows(table) -> dict:
+    """{surrogate: row dict} of the working models passing both guard rails, in order."""
+    return {r["surrogate"]: r for r in table.to_dict("records")
+            if r.get("status") == "ok" and bool(r.get("guard_coverage"))
+            and bool(r.get("guard_order"))}
+
+
+def close_candidates(table, leader: str | None = None, margin: float = PAIR_MARGIN) -> list[str]:
+    """Models passing the guard rails that are tied with ``leader`` (default: the
+    table's first) or within ``margin`` of its mean CRPS, tied ones first, each group
+    in table order; the leader itself excluded."""
+    ok = _passing_rows(table)
+    leader = leader or (table["surrogate"].iloc[0] if len(table) else None)
+    if leader not in ok:
+        return []
+    base = float(ok[leader]["crps"])
+    tied, near = [], []
+    for n, r in ok.items():
+        if n == leader:
+            continue
+        if bool(r.get("tied_with_leader")):
+            tied.append(n)
+        elif np.isfinite(r["crps"]) and r["crps"] <= base + margin * abs(base):
+            near.append(n)
+    return tied + near
+
+
+def default_setting_runs(backtest: dict | None) -> dict:
+    """{surrogate: {(stand-in, start): AUC}} of the default setting in the simulated
+    campaigns (empty when none ran)."""
+    sec = (backtest or {}).get("simulated") or {}
+    if sec.get("error"):
+        return {}
+    label = next((c["decision"]["default"] for c in
+                  ((backtest or {}).get("per_surrogate") or {}).values()
+                  if (c.get("decision") or {}).get("default")), DEFAULT_LABEL)
+    out = {}
+    for r in sec.get("results") or []:
+        if r.get("label") == label and not r.get("error") and r.get("runs"):
+            out[r["surrogate"]] = {(run["unit"], run["seed_index"]): run["auc"]
+                                   for run in r["runs"]}
+    return out
+
+
+def optimization_test(backtest: dict | None, reference: str | None, candidates) -> dict | None:
+    """The paired test of the close models against the calibration leader, or None when
+    there is nothing to test (no simulated runs for the leader, or no close model)."""
+    runs = default_setting_runs(backtest)
+    cands = [c for c in candidates if c != reference]
+    if reference is None or reference not in runs or not cands:
+        return None
+    tested = [c for c in cands if c in runs]
+    out = paired_surrogate_test(runs, reference, tested)
+    out["experiment"] = "simulated"
+    out["metric"] = "normalized-regret AUC with the default setting, paired by run"
+    out["not_backtested"] = [c for c in cands if c not in runs]
+    return out
+
+
+def _p_text(c: dict, alpha: float) -> str:
+    return (f"mean AUC difference {c['mean_difference']:+.3f} over {c['runs']} paired "
+            f"simulated runs, one-sided Wilcoxon, Holm-adjusted p = {c['p_holm']:.3g}"
+            f" {'<' if c['p_holm'] < alpha else '>='} {alpha}")
+
+
+def tie_and_pair(table, test: dict | None, acquisitions: dict | None = None):
+    """From the calibration table (before any tie-break) and :func:`optimization_test`:
+    ``(tie_winner, tie_evidence, pair)``.
+
+    ``tie_winner``: the tied model that optimizes significantly better than the leader
+    (lowest mean AUC difference among the significant tied ones), else None.
+    ``tie_evidence``: the test result in words (for the ranking's statement).
+    ``pair``: None, or the models to use for calibration and for optimization with the
+    test that decided; ``acquisitions`` ({surrogate: setting label}) adds the
+    optimization model's own backtested setting.
+    """
+    if not test or not test.get("comparisons"):
+        return None, None, None
+    alpha = test.get("alpha", ALPHA)
+    leader = test["reference"]
+    rows = {r["surrogate"]: r for r in table.to_dict("records")}
+    tied = {n for n, r in rows.items() if bool(r.get("tied_with_leader", False))}
+    sig = [c for c in test["comparisons"] if c["significant"]]
+    sig_tied = [c for c in sig if c["surrogate"] in tied]
+    winner = min(sig_tied, key=lambda c: c["mean_difference"]) if sig_tied else None
+    best_any = min(sig, key=lambda c: c["mean_difference"]) if sig else None
+    if winner is not None:
+        evidence = (f"the paired backtest test says {winner['surrogate']} optimizes better "
+                    f"than {leader} ({_p_text(winner, alpha)})")
+    else:
+        tested = [c for c in test["comparisons"] if c["surrogate"] in tied]
+        evidence = ("; ".join(f"{c['surrogate']} vs {leader}: Holm-adjusted p = "
+                              f"{c['p_holm']:.3g}" for c in tested)
+                    + f", level {alpha}") if tested else None
+    chosen = winner or best_any
+    pair = None
+    if chosen is not None:
+        name = chosen["surrogate"]
+        base = float(rows[leader]["crps"])
+        gap = float(rows[name]["crps"]) / base - 1.0 if base else float("nan")
+        is_tied = name in tied
+        pair = {"calibration": leader, "optimization": name,
+                "optimization_acquisition": (acquisitions or {}).get(name, DEFAULT_LABEL),
+                "tied": bool(is_tied), "crps_gap_relative": gap, "margin": PAIR_MARGIN,
+                "test": test["test"], "level": alpha, "experiment": "simulated",
+                "runs": chosen["runs"], "mean_difference": chosen["mean_difference"],
+                "p_value": chosen["p_value"], "p_holm": chosen["p_holm"]}
+        why = (f"{name} optimizes better than {leader} in the simulated campaigns "
+               f"({_p_text(chosen, alpha)}), and its calibration is "
+               + ("statistically tied with the leader's (95% model confidence set), so it "
+                  "is recommended and the leader stays the model for calibrated "
+                  "predictions" if is_tied else
+                  f"close to the leader's (mean CRPS {gap:+.0%}, within the "
+                  f"{PAIR_MARGIN:.0%} margin): use {leader} for calibrated predictions "
+                  f"and {name} in the optimization loop")
+               + " (Foldager et al. 2023: calibration tracks regret across model types "
+                 "but not within one)")
+        pair["statement"] = why
+    return (None if winner is None else winner["surrogate"]), evidence, pair
+
+
+def score_disagreement(preds: dict, table, blocks, seed: int,
+                       scoring_scales: dict | None = None, n_draws: int = 2000) -> dict | None:
+    """Do the leaders by held-out NLL and by held-out CRPS differ?
+
+    Among the models passing the guard rails, each scored as recommended (raw, or with
+    its cross-fitted variance scale).  When the leaders differ, the per-point NLL
+    difference of the two is tested with the two-model sign-flip test over the ranking's
+    blocks (the model confidence set's test, :func:`advisor.ranking.model_confidence_set`):
+    ``significant`` when the CRPS leader is worse by NLL at level 0.05.
+    """
+    rows = _passing_rows(table)
+    names = [n for n in rows if n in preds]
+    if len(names) < 2:
+        return None
+    scoring_scales = scoring_scales or {}
+    nll = {}
+    for n in names:
+        vs = float(rows[n].get("variance_scale", 1.0))
+        scale = scoring_scales.get(n, vs) if abs(vs - 1.0) > 1e-12 else 1.0
+        nll[n] = point_scores(preds[n], scale)["nll"]
+    crps = {n: float(rows[n]["crps"]) for n in names}
+    by_crps = min(names, key=crps.get)
+    by_nll = min(names, key=lambda n: float(np.mean(nll[n])))
+    out = {"crps_leader": by_crps, "nll_leader": by_nll, "disagree": by_crps != by_nll,
+           "nll_difference": float(np.mean(nll[by_crps]) - np.mean(nll[by_nll])),
+           "crps_difference": float(crps[by_nll] - crps[by_crps]),
+           "test": "sign-flip (wild cluster) test over the ranking's blocks of the "
+                   "per-point NLL difference, one model pair",
+           "level": MCS_LEVEL, "p_value": None, "significant": False}
+    if out["disagree"]:
+        rng = np.random.default_rng(seed)
+        losses = np.vstack([nll[by_crps], nll[by_nll]])
+        p = float(model_confidence_set(losses, blocks, n_draws, rng)[0])
+        out["p_value"] = p
+        out["significant"] = bool(p < MCS_LEVEL)
+        out["statement"] = (
+            f"NLL and CRPS disagree about the leader: {by_crps} has the lowest held-out "
+            f"CRPS, {by_nll} the lowest NLL ({out['nll_difference']:.3g} nats per point "
+            f"better; sign-flip p = {p:.3g}, "
+            + ("significant" if out["significant"] else "not significant")
+            + f" at {MCS_LEVEL}). The ranking follows CRPS (README, 'How the ranking is "
+              "decided'); NLL punishes overconfident tails harder, CRPS errors in the "
+              "mean, so a plateau or heavy tails in the objective can split them.")
+    return out
+
+
+_SCHEME_WORDS = {"forward": "forward chaining", "campaign": "leave-one-campaign-out",
+                 "kfold": "shuffled k-fold"}
+
+
+def scheme_summary(primary: str, by_scheme: dict, table) -> dict:
+    """Which scheme decided, and each scheme's CRPS leader among the models that pass
+    the guard rails (the other schemes are diagnostics; thorough mode only)."""
+    ok = set(_passing_rows(table)) or set(table["surrogate"])
+    leaders = {}
+    for scheme, scores in (by_scheme or {}).items():
+        vals = {n: m.get("crps") for n, m in scores.items() if n in ok
+                and m.get("crps") is not None and np.isfinite(m.get("crps"))}
+        if vals:
+            leaders[scheme] = min(vals, key=vals.get)
+    main = leaders.get(primary)
+    others = {s: n for s, n in leaders.items() if s != primary}
+    text = f"{_SCHEME_WORDS.get(primary, primary)} decided the ranking"
+    if others:
+        text += "; " + "; ".join(
+            f"under {_SCHEME_WORDS.get(s, s)} the CRPS leader is {n}"
+            + (" too" if n == main else f" (not {main})") for s, n in others.items())
+        text += " (diagnostics: they do not enter the ranking)"
+    else:
+        text += " (the other schemes are scored in thorough mode only)"
+    return {"deciding_scheme": primary, "leaders_by_scheme": leaders,
+            "schemes_agree": bool(all(n == main for n in others.values())),
+            "rule": "the primary scheme decides; on the real-log benchmark forward "
+                    "chaining had the lowest selection regret and averaging it with "
+                    "leave-one-campaign-out was worse "
+                    "(benchmarks/results/real_logs_score_choice.json)",
+            "statement": text}
+
+
+def acquisition_strength(decision: dict) -> tuple[str, str]:
+    """Plain words for the paired test of the settings against the default.
+
+    *clear*: a setting beats the default at the stated level (Holm-adjusted);
+    *weak*: none does, but the best one-sided raw p-value is below the level (a hint
+    the multiplicity correction does not let through); *none*: no setting comes near.
+    With *weak* or *none* the default is recommended.
+    """
+    comps = decision.get("comparisons") or []
+    alpha = decision.get("alpha", 0.05)
+    if decision.get("beats_default"):
+        return "clear", f"beats the default at Holm-adjusted level {alpha}"
+    if comps and min(c["p_value"] for c in comps) < alpha:
+        return "weak", ("a setting looks better than the default before the correction "
+                        "for the number of settings, not after; the default stands")
+    return "none", "no setting beats the default on these logs; the default stands"
+
+
+def _setting_dict(backtest_out, label):
+    for st in backtest_out.get("settings") or []:
+        if st.get("label") == label:
+            return {"name": st["name"], "params": dict(st.get("params") or {})}
+    return None
+
+
+def _acquisition_statement(source: str, decision: dict, leader: str, backtest_out) -> str:
+    """The acquisition evidence in one sentence, with its test and level."""
+    if source != "backtest":
+        if backtest_out is None:
+            return ("EI xi=0.01 is a default: the acquisition backtest did not run, so "
+                    "nothing was tested")
+        return (f"EI xi=0.01 is a default: the backtest did not cover {leader} and the "
+                "default without error, so nothing was tested")
+    alpha = decision.get("alpha")
+    power = decision.get("power_at_0.1")
+    ptxt = "" if power is None else f"; power to find a 0.1 AUC gain {power:.2f}"
+    n = max((c.get("runs", 0) for c in decision.get("comparisons") or []), default=0)
+    where = f"{n} paired {decision.get('experiment')} runs"
+    if decision.get("beats_default"):
+        cmp = next(c for c in decision["comparisons"] if c["label"] == decision["chosen"])
+        return (f"{decision['chosen']} was chosen by the acquisition backtest: it beats the "
+                f"default EI xi=0.01 on {where} ({decision.get('test')}, adjusted p = "
+                f"{cmp['p_holm']:.3g} < level {alpha}{ptxt})")
+    best = min((c["p_holm"] for c in decision.get("comparisons") or []), default=None)
+    return (f"EI xi=0.01 is the default, kept by the acquisition backtest: no setting beats "
+            f"it on {where} ({decision.get('test')} at level {alpha}"
+            + ("" if best is None else f"; smallest adjusted p = {best:.3g}")
+            + f"{ptxt}); the logs give no reason to change it")
+
+
+def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=None,
+                   schemes=None) -> dict:
+    """The ``recommendation`` payload: the table's first model, its acquisition setting
+    (the paired test against the default decides), and how the decision was reached."""
+    table = ranking.table
+    leader = ranking.leader
+    extra = {"tie_break": None, "pair": pair, "optimization_test": test,
+             "score_disagreement": disagreement,
+             "deciding_scheme": (schemes or {}).get("deciding_scheme")}
+    if leader is None:
+        return {"surrogate": None, "acquisition": dict(DEFAULT_ACQUISITION),
+                "acquisition_source": "default", "acquisition_statement":
+                "no surrogate to run the acquisition with", "variance_scale": 1.0,
+                "confidence": "none", "statement": ranking.statement,
+                "runner_up": None, "reasons": [ranking.statement], **extra}
+    row = table.set_index("surrogate").loc[leader]
+    ok = table[table["status"] == "ok"]
+    runner = ok["surrogate"].iloc[1] if len(ok) > 1 else None
+    acq = dict(DEFAULT_ACQUISITION)
+    source = "default"
+    reasons = list(ranking.reasons.get(leader, []))
+    choice = (backtest_out or {}).get("per_surrogate", {}).get(leader)
+    decision = (choice or {}).get("decision") or {}
+    if choice and choice.get("acquisition") and decision.get("chosen"):
+        # the paired test against the default decides (advisor.backtest._decision)
+        source = "backtest"
+        if decision.get("beats_default"):
+            acq = _setting_dict(backtest_out, decision["chosen"]) or acq
+    statement = _acquisition_statement(source, decision, leader, backtest_out)
+    reasons.append("acquisition: " + statement)
+    acq_strength = acquisition_strength(decision) if source == "backtest" else None
+    if acq_strength is not None:
+        reasons.append(f"strength of the acquisition evidence: {acq_strength[0]} "
+                       f"({acq_strength[1]})")
+    tied = [n for n in ok["surrogate"] if n != leader and bool(
+        table.set_index("surrogate").loc[n].get("tied_with_leader", False))
+        and bool(table.set_index("surrogate").loc[n]["guard_coverage"])
+        and bool(table.set_index("surrogate").loc[n]["guard_order"])]
+    if tied:
+        won = ranking.tie_winner is not None
+        extra["tie_break"] = {
+            "tied": [leader] + tied, "decided_by": "paired backtest test" if won
+            else "mean CRPS", "winner": leader,
+            "reason": (f"{leader} optimizes significantly better in the simulated "
+                       "campaigns than the calibration leader" if won else
+                       ("no tied model optimizes significantly better than the "
+                        "calibration leader in the simulated campaigns"
+                        if test is not None else
+                        "the paired backtest test did not run for the tied models (no "
+                        "backtest, or no simulated runs for the leader)")
+                       + ", so mean CRPS keeps its order; a backtest score without a "
+                         "significant paired test breaks no tie")}
+        reasons.append("tie-break: " + extra["tie_break"]["reason"])
+    if pair is not None:
+        reasons.append("pair: " + pair["statement"])
+    if disagreement and disagreement.get("disagree"):
+        reasons.append(disagreement["statement"])
+    if schemes:
+        reasons.append("validation: " + schemes["statement"])
+    test_out = None if source != "backtest" else {
+        "test": decision.get("test"), "level": decision.get("alpha"),
+        "experiment": decision.get("experiment"), "metric": decision.get("metric"),
+        "default": decision.get("default"), "beats_default": decision.get("beats_default"),
+        "p_values": {c["label"]: c["p_value"] for c in decision.get("comparisons", [])},
+        "p_holm": {c["label"]: c["p_holm"] for c in decision.get("comparisons", [])},
+        "power_at_0.1": decision.get("power_at_0.1")}
+    return {"surrogate": leader, "acquisition": acq, "acquisition_source": source,
+            "acquisition_evidence": None if acq_strength is None else acq_strength[0],
+            "acquisition_test": test_out, "acquisition_statement": statement,
+            "acquisition_margins": None if not (choice and choice.get("acquisition")) else {
+                "over_runner_up": choice.get("margin_over_runner_up"),
+                "over_random": choice.get("margin_over_random"),
+                "runner_up": (choice.get("runner_up") or {}).get("label")},
+            "variance_scale": float(row["variance_scale"]),
+            "confidence": ranking.confidence, "statement": ranking.statement,
+            "runner_up": runner, "reasons": reasons,
+            "cheaper_alternatives_by_fit_seconds": ranking.cheaper_by_fit_seconds,
+            **extra}
