@@ -1,9 +1,13 @@
 """Backtest acquisition settings on the user's own logs.
 
-Private modules: ``_campaigns`` (pool replay on the logged campaigns, the diagnostic,
-and simulated campaigns on stand-in functions, the evidence; plan, runs and summaries)
-and ``_decision`` (the paired test of every setting against the default, Holm's
-multiplicity control and the simulated power).  The method, budgets and output schema
+Private modules: ``_campaigns`` (the orchestration, :func:`run_backtest`, and the
+method's description), ``_plan`` (budgets), ``_pool`` (the pool campaign every experiment
+runs), ``_replay`` (pool replay on the logged campaigns, the diagnostic), ``_simulated``
+and ``_standins`` (simulated campaigns on stand-in functions, the evidence),
+``_summaries`` (regret curves and summaries), ``_choice`` (the best setting per
+surrogate and the per-surrogate paired decision) and ``_decision`` (the paired test of
+every setting against the default, Holm's multiplicity control and the simulated
+power).  The method, budgets and output schema
 are in :mod:`advisor.backtest._campaigns`'s docstring.
 """
 
