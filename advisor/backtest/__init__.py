@@ -13,8 +13,12 @@ are in :mod:`advisor.backtest._campaigns`'s docstring.
 
 from ._campaigns import (BacktestPlan, StandIns, campaign_pools, choose_setting, plan_for,
                          posterior_standins, replay_pool, run_backtest)
+from ._grid import grid_design, grid_levels
+from ._replay import replay_paired_test
+from ._standins import STANDIN_CLASSES, mixed_standins
 from ._decision import ALPHA, TEST_NAME, holm_adjust, paired_decision, paired_power
 
 __all__ = ["BacktestPlan", "plan_for", "run_backtest", "choose_setting", "replay_pool",
            "posterior_standins", "StandIns", "campaign_pools", "paired_decision",
-           "holm_adjust", "paired_power", "ALPHA", "TEST_NAME"]
+           "holm_adjust", "paired_power", "ALPHA", "TEST_NAME", "grid_design",
+           "grid_levels", "mixed_standins", "STANDIN_CLASSES", "replay_paired_test"]

@@ -138,7 +138,7 @@ from ..surrogates import make_surrogate
 from ._choice import DEFAULT_LABEL, _decide, _overall_choice, choose_setting
 from ._plan import BacktestPlan, plan_for
 from ._pool import _pool_task, replay_pool
-from ._replay import _replay_grid, _skipped_campaigns, campaign_pools
+from ._replay import _replay_grid, _skipped_campaigns, campaign_pools, replay_paired_test
 from ._simulated import _simulated_grid
 from ._standins import StandIns, posterior_standins
 from ._summaries import _band, _score_sequence, _stats, _summarize
@@ -240,6 +240,9 @@ def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSettin
     out["per_surrogate"] = {name: choose_setting(out, name) for name in surrogates}
     for name in surrogates:
         out["per_surrogate"][name]["decision"] = _decide(out, name, seed)
+    if replay is not None:
+        replay["paired_test"] = {name: replay_paired_test(replay, name, DEFAULT_LABEL)
+                                 for name in surrogates}
     out["choice"] = _overall_choice(out)
     return out
 
@@ -290,7 +293,8 @@ def _collect(part, units, keys, outputs, surrogates, settings, failures, trials)
 
 
 def _baselines(part, units, seed, plan) -> dict:
-    """Random order (shuffles after the same start) and, for the replay, actual order."""
+    """Random order (shuffles after the same start); for the replay, actual order; for
+    the simulated campaigns, grid search (one design per start index, see ``_grid``)."""
     rand_runs, actual_runs, per_unit = [], [], {}
     for uid, unit in units.items():
         y, L = unit["y"], unit["length"]
@@ -308,6 +312,19 @@ def _baselines(part, units, seed, plan) -> dict:
             actual_runs.append(_score_sequence(y[:L], unit))
     out = {"random": dict(_summarize(rand_runs), label="random order",
                           per_unit_mean_auc=per_unit)}
+    grid_runs, grid_scored, grid_unit = [], [], {}
+    for uid, unit in units.items():
+        for s, rows in enumerate(unit.get("grid") or []):
+            sc = _score_sequence(unit["y"][rows], unit)
+            grid_scored.append(sc)
+            grid_runs.append({"unit": uid, "seed_index": s, "auc": sc["auc"],
+                              "trials_to_best5": sc["ttb"], "censored": sc["censored"]})
+            grid_unit.setdefault(uid, []).append(sc["auc"])
+    if grid_runs:
+        out["grid"] = dict(_summarize(grid_scored), label="grid search",
+                           per_unit_mean_auc={u: float(np.mean(a))
+                                              for u, a in grid_unit.items()},
+                           runs=grid_runs)
     if part == "replay":
         note = ("logged order" if all(u["ordered"] for u in units.values())
                 else "file row order where the log has no order column")

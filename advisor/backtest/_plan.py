@@ -16,6 +16,7 @@ class BacktestPlan:
     replay_seeds: int = 3
     replay_max_picks: int | None = None
     refit_every: int = 1
+    reoptimize_every: int | None = None
     random_orders: int = 200
     sim_functions: int = 8
     sim_seeds: int = 2
@@ -25,19 +26,23 @@ class BacktestPlan:
     batch_method: str = "kriging_believer"
     simulate: bool = True
     replay: bool = True
+    sim_classes: tuple = ("gp", "forest")
+    grid: bool = True
 
     def to_dict(self) -> dict:
-        return dataclasses.asdict(self)
+        d = dataclasses.asdict(self)
+        d["sim_classes"] = list(d["sim_classes"])
+        return d
 
 
 def plan_for(quick: bool, **changes) -> BacktestPlan:
     """The quick or full plan, with any field overridden by keyword."""
-    base = (BacktestPlan(replay_seeds=1, replay_max_picks=10, refit_every=5,
-                         random_orders=32, sim_functions=4, sim_seeds=2,
-                         sim_extra_candidates=200, sim_max_budget=12)
-            if quick else BacktestPlan(replay_seeds=2, replay_max_picks=24, refit_every=3,
-                                       sim_functions=4, sim_seeds=1,
-                                       sim_extra_candidates=500, sim_max_budget=24))
+    base = (BacktestPlan(replay_seeds=1, replay_max_picks=10, refit_every=1,
+                         reoptimize_every=5, random_orders=32, sim_functions=8,
+                         sim_seeds=3, sim_extra_candidates=200, sim_max_budget=12)
+            if quick else BacktestPlan(replay_seeds=2, replay_max_picks=24, refit_every=1,
+                                       reoptimize_every=5, sim_functions=8, sim_seeds=4,
+                                       sim_extra_candidates=400, sim_max_budget=20))
     return dataclasses.replace(base, **changes)
 
 

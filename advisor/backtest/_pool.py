@@ -16,7 +16,8 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
                 frame: pd.DataFrame, y: np.ndarray, init: Sequence[int], n_picks: int,
                 *, batch: int = 1, method: str = "kriging_believer", refit_every: int = 1,
                 model_seed: int = 0, rng: np.random.Generator | int = 0,
-                quick: bool = False, cache: dict | None = None
+                quick: bool = False, cache: dict | None = None,
+                reoptimize_every: int | None = None
                 ) -> tuple[list[int], str | None]:
     """Run one pool-based campaign and return the picked pool indices in pick order.
 
@@ -37,13 +38,20 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
     n_picks : int
         Picks after the start (capped by the pool size).
     batch, method, refit_every, model_seed, rng, quick
-        Batch size and method, picks between refits, model seed, acquisition RNG,
+        Batch size and method, steps between refits, model seed, acquisition RNG,
         quick model budget.
     cache : dict, optional
-        Fitted models keyed by the training rows (in order).  Runs of several settings
-        on the same pool with the same ``model_seed`` share it, so the fit on the common
-        start (and on any identical history) is done once; a fit is a deterministic
-        function of seed and data, so sharing changes no result.
+        Fitted models keyed by how they were fitted and on which rows (in order).  Runs
+        of several settings on the same pool with the same ``model_seed`` share it, so
+        the fit on the common start (and on any identical history) is done once; a fit
+        is a deterministic function of seed and data, so sharing changes no result.
+    reoptimize_every : int, optional
+        Cheap updates (see :func:`_schedule`): full fits (hyperparameters re-optimized)
+        only every ``reoptimize_every`` steps or when the training set has doubled
+        since the last one; in between, a model offering
+        ``with_fixed_hyperparameters()`` is refitted at every refit step with the
+        hyperparameters of its last full fit held, and any other model is kept as it
+        was (the incumbent is always current).  None: a full fit at every refit step.
 
     Returns
     -------
@@ -65,6 +73,7 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
     X = None
     if setting.name != "random":
         X = space.encode(frame, getattr(build(), "input_encoding", "onehot"))
+    state = _FitState()
     model, draws, picked, step = None, None, [], 0
     while len(picked) < n_picks:
         q = min(batch, n_picks - len(picked))
@@ -73,11 +82,12 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
             sel = rng.choice(len(cand), size=q, replace=False)
         else:
             Xt, yt = X[used], y[used]
-            if model is None or step % refit_every == 0:
-                model = _fitted(build, Xt, yt, tuple(used), cache)
+            if model is None or step % max(1, int(refit_every)) == 0:
+                model = state.fit(build, Xt, yt, tuple(used), step, reoptimize_every,
+                                  cache) or model
             s = select_batch(model, setting, X[cand], incumbent(model, Xt), q, rng, method,
                              y_scale=_scale(yt), X_train=Xt, y_train=yt,
-                             refit=lambda Xa, ya: build().fit(Xa, ya))
+                             refit=_fantasy_refit(model, build))
             sel, draws = s.indices, draws or s.draws
         idx = [int(i) for i in cand[sel]]
         picked.extend(idx)
@@ -85,6 +95,44 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
         free[idx] = False
         step += 1
     return picked, draws
+
+
+class _FitState:
+    """The last full fit of a run, whose hyperparameters the cheap updates hold."""
+
+    def __init__(self):
+        self.base, self.base_key, self.base_step = None, None, 0
+
+    def fit(self, build, X, y, key, step, reoptimize_every, cache):
+        """The model for this step; None = keep the current one (a model with no
+        fixed-hyperparameter path between two scheduled full fits)."""
+        fixed = getattr(self.base, "with_fixed_hyperparameters", None)
+        if (reoptimize_every is None or self.base is None
+                or _schedule(step - self.base_step, len(key), len(self.base_key),
+                             int(reoptimize_every))):
+            model = _fitted(build, X, y, ("full",) + key, cache)
+            self.base, self.base_key, self.base_step = model, key, step
+            return model
+        if not callable(fixed):
+            return None
+        return _fitted(fixed, X, y, ("fixed", self.base_key) + key, cache)
+
+
+def _schedule(steps_since: int, n_now: int, n_then: int, every: int) -> bool:
+    """Re-optimize the hyperparameters now?  After ``every`` steps, or once the training
+    set has doubled since the last optimization (early on a handful of points carries
+    little information about the length scales, so the first ones are re-learned
+    sooner; our choice)."""
+    return steps_since >= every or n_now >= 2 * n_then
+
+
+def _fantasy_refit(model, build):
+    """Refit for the batch fantasies: hyperparameters fixed when the model allows it
+    (the fantasies are not data to learn length scales from), else a full fit."""
+    fixed = getattr(model, "with_fixed_hyperparameters", None)
+    if callable(fixed):
+        return lambda Xa, ya: fixed().fit(Xa, ya)
+    return lambda Xa, ya: build().fit(Xa, ya)
 
 
 def _fitted(build, X, y, key, cache):
@@ -101,7 +149,7 @@ def _scale(y) -> float:
 
 
 def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, batch,
-               method, refit_every, model_seed, rng_seeds, quick):
+               method, refit_every, model_seed, rng_seeds, quick, reoptimize_every=None):
     """Executor task: every setting of one surrogate on one pool and start.
 
     Returns one ``{"picked", "draws", "error"}`` per setting; an exception is recorded,
@@ -118,7 +166,7 @@ def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, b
                     make, surrogate, AcquisitionSetting.from_dict(setting_dict), space,
                     frame, y, init, n_picks, batch=batch, method=method,
                     refit_every=refit_every, model_seed=model_seed, rng=rng_seed,
-                    quick=quick, cache=cache)
+                    quick=quick, cache=cache, reoptimize_every=reoptimize_every)
                 out.append({"picked": picked, "draws": draws, "error": None})
             except Exception as exc:  # a failing surrogate is recorded, never fatal
                 out.append({"picked": None, "draws": None,

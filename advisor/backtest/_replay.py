@@ -81,6 +81,36 @@ def _replay_grid(trials, pools, surrogates, settings, seed, quick, batch, plan, 
                               plan.refit_every,
                               task_seed(seed, "model", name, "replay", p["campaign"], s),
                               [task_seed(seed, "acq", name, st.label, "replay",
-                                         p["campaign"], s) for st in settings], quick))
+                                         p["campaign"], s) for st in settings], quick,
+                              plan.reoptimize_every))
                 keys.append((name, p["campaign"], s))
     return units, tasks, keys
+
+
+def replay_paired_test(replay: dict, surrogate: str, default: str) -> dict:
+    """The replay's own paired test of every setting against ``default`` (issue 12,
+    item 6): one-sided Wilcoxon signed-rank over the replay runs paired by campaign and
+    start, Holm over the grid (:func:`advisor.backtest.paired_decision`).
+
+    The replay is a diagnostic: it feeds the recommendation only through this test, and
+    only when no simulated campaign ran.  ``min_attainable_p`` is the smallest one-sided
+    p-value the signed-rank test can give with this many pairs, ``2 ** -n`` (all
+    differences of one sign; exact null distribution, Wilcoxon 1945): with 4 campaigns
+    it is 0.0625, so a replay over few campaigns can never be significant at 0.05.
+    """
+    from ._decision import paired_decision
+
+    values = {}
+    for r in replay.get("results") or []:
+        if r["surrogate"] != surrogate or r["error"] or r["acquisition"]["name"] == "random":
+            continue
+        values[r["label"]] = {f"{run['unit']}#{run['seed_index']}": run["auc"]
+                              for run in r["runs"]}
+    out = paired_decision(values, default)
+    pairs = max((c["runs"] for c in out.get("comparisons") or []), default=0)
+    out["metric"] = "normalized best-so-far AUC on the logged campaigns, paired by " \
+                    "campaign and start"
+    out["pairs"] = int(pairs)
+    out["min_attainable_p"] = float(2.0 ** -pairs) if pairs else None
+    out["significant"] = bool(out.get("beats_default"))
+    return out
