@@ -3,7 +3,8 @@
 Private modules: ``_campaigns`` (the orchestration, :func:`run_backtest`, and the
 method's description), ``_plan`` (budgets), ``_pool`` (the pool campaign every experiment
 runs), ``_replay`` (pool replay on the logged campaigns, the diagnostic), ``_simulated``
-and ``_standins`` (simulated campaigns on stand-in functions, the evidence),
+and ``_standins`` (simulated campaigns on stand-in functions of two model classes, the
+evidence), ``_grid`` (the grid-search baseline),
 ``_summaries`` (regret curves and summaries), ``_choice`` (the best setting per
 surrogate and the per-surrogate paired decision) and ``_decision`` (the paired test of
 every setting against the default, Holm's multiplicity control and the simulated

@@ -14,21 +14,27 @@ the campaign's logged best: the replay can only show how *fast* a setting would 
 got there, never better.  This is the offline replay idea of Li, Chu, Langford & Wang
 (2011) applied to a finite design pool; the details below are our choices.
 
-**Simulated campaigns** (on stand-ins with a known optimum).  The project GP is fitted
-to all logged trials and ``sim_functions`` functions are drawn *jointly* from its
-posterior (``sample_y``) on a candidate set of fresh uniform samples of the same
-parameter space (issue 12: candidate sets that were mostly logged points favoured
-revisiting).  Each stand-in is defined on that finite set only, so its
-minimum over the set is exactly known and the simple regret
-:math:`r_t = \\min_{s \\le t} f(x_s) - \\min_C f` is exact.  Every surrogate and setting
-runs a pool campaign of ``budget`` trials on each stand-in from ``sim_n_init`` random
-starting points (the same for every setting: a paired design); random search from the
-same start is the baseline.  The surrogates observe the draw plus normal noise at the
-sampler's fitted noise level (one noise draw per candidate and stand-in, the same for
-every setting); the regret is scored on the noise-free draw.  Models are refitted at
-every step (``refit_every``) with their quick budget; nothing is carried between fits.  This follows the "prior/posterior draws as
-test functions" practice of e.g. Hennig & Schuler (2012, sec. 4); the candidate-set
-construction is ours.
+**Simulated campaigns** (on stand-ins with a known optimum), the evidence.  Stand-in
+functions are drawn from models of two classes fitted to all logged trials, half each
+(``sim_classes``, :mod:`._standins`): joint GP posterior draws (``sample_y``) and
+bootstrap-forest functions (the mean of 5 distinct bootstrap trees), on a candidate set
+of fresh uniform samples of the parameter space (issue 12: candidate sets that were
+mostly logged points favoured revisiting) plus the grid-search designs.  Each stand-in
+is defined on that finite set only, so its minimum over the set is exactly known and the
+simple regret :math:`r_t = \\min_{s \\le t} f(x_s) - \\min_C f` is exact.  Every surrogate
+and setting runs a pool campaign of ``budget`` trials on each stand-in from ``n_init``
+random starting points (the same for every setting: a paired design).  Baselines on the
+same functions: random search from the same start, and grid search (:mod:`._grid`, a
+full factorial sized to the budget, one design per start index).  The surrogates observe
+the stand-in plus normal noise at the GP's fitted noise level (one noise draw per
+candidate and stand-in, the same for every setting); the regret is scored on the
+noise-free values.  Models are refitted at every step (``refit_every``) with their quick
+budget; cheap updates (``reoptimize_every``): a full fit, hyperparameters re-optimized,
+every ``reoptimize_every`` steps or when the training set has doubled since the last
+one, and in between a model offering ``with_fixed_hyperparameters()`` (the GP) is
+refitted with those hyperparameters held, any other model kept as it was.  This follows
+the "prior/posterior draws as test functions" practice of e.g. Hennig & Schuler (2012,
+sec. 4); the candidate-set construction and the second class are ours.
 
 Summaries (per surrogate × setting, and for the baselines), over all runs
 (campaign or stand-in × seed):
@@ -52,18 +58,23 @@ Budgets (each a field of :class:`BacktestPlan`, quick / full):
                                            by the order column, so seeds vary the model
                                            and the Thompson / random draws)
 ``replay_max_picks``       10 / 24         picks after the start
-``refit_every``            5 / 3           picks between refits (stale model in between,
+``refit_every``            1 / 1           steps between refits (stale model in between,
                                            incumbent always current)
+``reoptimize_every``       5 / 5           steps between full fits (see above; None =
+                                           every refit is a full fit)
 ``random_orders``          32 / 200        shuffles for the random-order baseline
-``sim_functions``          4 / 4           posterior draws (stand-ins)
-``sim_seeds``              2 / 1           runs per stand-in (different random starts)
-``sim_extra_candidates``   200 / 500       space samples added to the logged settings
-``sim_max_budget``         12 / 24         cap on the simulated budget
+``sim_functions``          8 / 8           stand-ins, half per class in ``sim_classes``
+``sim_seeds``              3 / 4           runs per stand-in (different random starts)
+``sim_extra_candidates``   200 / 400       fresh space samples in the candidate set
+``sim_max_budget``         12 / 20         cap on the simulated budget
+``grid``                   True            grid search as a simulated baseline
 =========================  ==============  ===============================================
 
-The full plan was cut from "every pick, refit each step, 3 seeds, 8 stand-ins" after
-that took 15 minutes for three surrogates on a 130-trial log; the class defaults keep
-the exhaustive values for callers who want them (``plan=BacktestPlan()``).
+Quick mode thus makes 24 paired runs per setting, thorough 32: enough that a true AUC
+difference of 0.1 is found at the strictest Holm level with power >= 0.8 on the logs
+measured (``power_at_0.1`` in each decision; README "What the backtest runs").  The
+class defaults (``plan=BacktestPlan()``) keep exhaustive values: full fits at every
+step.
 
 The simulated budget defaults to the median campaign size of the log (the size of the
 next campaign is most likely like the past ones).  With ``batch = q > 1`` each step picks
@@ -91,12 +102,20 @@ Output of :func:`run_backtest` (plain dicts, lists, str, int, float, bool, None)
       results     [RESULT, ...]  one per surrogate x setting, surrogate-major order
       random      SUMMARY + {label: "random order", per_unit_mean_auc: {campaign: float}}
       actual      SUMMARY + {label: "actual order", note}
+      paired_test {surrogate: the replay's own paired test against the default,
+                   see :func:`._replay.replay_paired_test`}
     simulated     None when plan.simulate is False; {error: str, functions: [],
                   results: []} when no stand-ins could be drawn; else
-      error None, budget, n_init, candidates, logged_candidates, sampler, observations,
-      functions   [{id: "f0", optimum, worst, argmin_is_logged}, ...]
+      error None, budget, n_init, candidates, logged_candidates, space_samples,
+      grid_candidates, sampler ("gp+forest"), noise_std, observations, runs_per_setting,
+      updates (text), standins: {classes: {class: count}, share, descriptions, failed},
+      grid_design: {levels_per_parameter, parameters, rule} | None,
+      functions   [{id: "f0", class, optimum, worst, argmin_is_logged,
+                    argmin_is_grid}, ...]
       results     [RESULT, ...]
       random      SUMMARY + {label, per_unit_mean_auc: {function id: float}}
+      grid        SUMMARY + {label: "grid search", per_unit_mean_auc, runs: [{unit,
+                    seed_index, auc, trials_to_best5, censored}]}  (when plan.grid)
     failures      [{surrogate, acquisition: {name, params}, label, experiment,
                     runs_failed, error (the first one)}, ...]
     per_surrogate {name: CHOICE}    the best setting for each surrogate

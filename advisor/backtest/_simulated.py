@@ -62,7 +62,7 @@ def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, pl
                 "failed": dict(stand.failed)},
             "runs_per_setting": int(len(stand.values) * plan.sim_seeds),
             "updates": _updates_text(plan),
-            "grid": None if not designs else {
+            "grid_design": None if not designs else {
                 "levels_per_parameter": grid_levels(total, len(trials.params)),
                 "parameters": len(trials.params),
                 "rule": "full factorial at cell midpoints, levels = max(2, floor(budget^"

@@ -426,7 +426,7 @@ def backtest_figure(backtest: Mapping | None, styles=None) -> Figure:
         _axes_style(ax)
         sec = (backtest or {}).get(key)
         if key == "simulated" and (sec or {}).get("sampler"):
-            title = f"simulated campaigns ({sec['sampler'].replace('+', ' and ')} stand-ins)"
+            title = f"simulated: {sec['sampler'].replace('+', ' + ')} stand-ins"
         ax.set_title(title, fontsize=_TEXT + 0.5)
         if not sec or sec.get("error") or not sec.get("results"):
             why = "did not run" if not sec else (sec.get("error") or "no results")

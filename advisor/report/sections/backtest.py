@@ -108,7 +108,7 @@ def _intro_text(bt, cfg) -> str:
     st = sim.get("standins") or {}
     classes = st.get("classes") or {}
     if classes:
-        drawn = " and ".join(f"{n} {(st.get('descriptions') or {}).get(c, c)}"
+        drawn = " and ".join(f"{n} × {(st.get('descriptions') or {}).get(c, c)}"
                              for c, n in classes.items())
         sims = (f"run on {sim.get('runs_per_setting', 'n/a')} simulated campaigns per "
                 f"setting (stand-in functions fitted to the whole log: {_e(drawn)}; "
@@ -117,7 +117,7 @@ def _intro_text(bt, cfg) -> str:
     else:
         sims = "run on simulated campaigns drawn from a model of the log"
     updates = sim.get("updates")
-    grid = sim.get("grid")
+    grid = sim.get("grid_design")
     text = ("The simulated campaigns are the evidence: each surrogate and acquisition "
             f"setting was {sims}, from the same starting trials as random search (batch "
             f"{cfg.get('batch', 1)}, budget {sim.get('budget', cfg.get('budget', 'n/a'))}"
