@@ -142,6 +142,15 @@ def run_case(name: str, jobs: int, tmp: Path, profile: str | None) -> dict:
             "backtested": bt.get("surrogates"),
             "settings": [s["label"] for s in bt.get("settings") or []],
             "simulated_runs_per_setting": sim.get("runs_per_setting"),
+            "standins": (sim.get("standins") or {}).get("classes"),
+            "power_at_0.1": {n: (c.get("decision") or {}).get("power_at_0.1")
+                             for n, c in (bt.get("per_surrogate") or {}).items()},
+            "decision": {n: {"chosen": (c.get("decision") or {}).get("chosen"),
+                             "p_holm": {k["label"]: k["p_holm"] for k in
+                                        (c.get("decision") or {}).get("comparisons") or []}}
+                         for n, c in (bt.get("per_surrogate") or {}).items()},
+            "baselines_auc_median": {k: ((sim.get(k) or {}).get("auc") or {}).get("median")
+                                     for k in ("random", "grid")},
             "load_average_before": list(load0), "load_average_after": list(os.getloadavg())}
 
 
@@ -162,6 +171,8 @@ def main(argv=None):
             print(f"{name:12s} wall {r['wall_seconds']:6.1f} s  cpu {r['cpu_seconds']:6.1f} s "
                   f"(target {r['target_wall_seconds']:.0f} s wall: "
                   f"{'met' if r['meets_target'] else 'MISSED'})")
+            print(f"    backtested {r['backtested']}, runs/setting "
+                  f"{r['simulated_runs_per_setting']}, power at 0.1 {r['power_at_0.1']}")
             for stage, v in r["stages"].items():
                 print(f"    {stage:16s} wall {v['wall_seconds']:6.1f}  cpu {v['cpu_seconds']:6.1f}")
     machine = {"cpus": os.cpu_count(), "processor": platform.processor() or platform.machine(),

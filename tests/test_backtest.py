@@ -514,3 +514,29 @@ def test_cheap_updates_reoptimize_on_schedule(trials):
     replay_pool(make, "gp", AcquisitionSetting("ei", {"xi": 0.01}), trials.space, frame,
                 pool["y"], [0, 1], n_picks=10, refit_every=1, reoptimize_every=5, rng=0)
     assert calls == {"full": 3, "fixed": 7}
+
+
+def test_replay_paired_test_cannot_decide_with_four_campaigns():
+    # The replay's own test: a setting better than the default on all 4 campaigns has
+    # the exact one-sided signed-rank p = 2^-4 = 0.0625 (all signs agree; Wilcoxon
+    # 1945; the exact null distribution in scipy), so it is never significant at 0.05,
+    # and the floor is reported.
+    from scipy.stats import wilcoxon
+
+    from advisor.backtest import replay_paired_test
+
+    def res(label, name, params, aucs):
+        return {"surrogate": "gp", "label": label, "error": None,
+                "acquisition": {"name": name, "params": params},
+                "runs": [{"unit": f"c{i}", "seed_index": 0, "auc": a}
+                         for i, a in enumerate(aucs)]}
+
+    dflt = [0.30, 0.40, 0.50, 0.60]
+    better = [0.10, 0.25, 0.20, 0.45]
+    replay = {"results": [res("EI xi=0.01", "ei", {"xi": 0.01}, dflt),
+                          res("Thompson", "thompson", {}, better)]}
+    t = replay_paired_test(replay, "gp", "EI xi=0.01")
+    ref = wilcoxon(np.subtract(better, dflt), alternative="less").pvalue
+    assert t["comparisons"][0]["p_value"] == pytest.approx(ref) == pytest.approx(1 / 16)
+    assert t["pairs"] == 4 and t["min_attainable_p"] == pytest.approx(0.0625)
+    assert not t["significant"] and t["chosen"] == "EI xi=0.01"
