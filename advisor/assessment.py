@@ -270,6 +270,9 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     fail_text = {n: [e["error"] for e in v] for n, v in failures.items()}
     ranking = rank_surrogates(preds, fail_text, fit_s, **rank_kwargs)
 
+    # the failure model first: the simulated campaigns fail where it says
+    feasibility_out = _feasibility(trials, scheme.name, seed=seed, quick=quick,
+                                   executor=executor)
     backtest_out = None
     t_bt = time.perf_counter()
     if backtest and ranking.leader is not None:
@@ -277,7 +280,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         if candidates:
             backtest_out = _run_backtest(trials, candidates, settings, seed=seed,
                                          quick=quick, budget=budget, batch=batch,
-                                         executor=executor)
+                                         executor=executor,
+                                         failure_model=(feasibility_out or {}).get("_model"))
             scores = {n: backtest_out["per_surrogate"][n]["score"] for n in candidates
                       if backtest_out["per_surrogate"].get(n, {}).get("score") is not None}
             ranking = rank_surrogates(preds, fail_text, fit_s, backtest_score=scores,
@@ -286,8 +290,6 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
 
     rec = _recommendation(ranking, backtest_out)
     t_plan = time.perf_counter()
-    feasibility_out = _feasibility(trials, scheme.name, seed=seed, quick=quick,
-                                   executor=executor)
     planning_out, proposals = None, None
     if plan and rec["surrogate"] is not None:
         planning_out, proposals = _plan(trials, rec, names=[n for n in names
@@ -460,12 +462,14 @@ def _quick_model(name: str, seed: int = 0, quick: bool = True, **options):
     return make_surrogate(name, seed=seed, quick=True, **options)
 
 
-def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, executor):
-    from .backtest import plan_for, run_backtest
+def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, executor,
+                  failure_model=None):
+    from .backtest import FailureModel, plan_for, run_backtest
 
     out = run_backtest(trials, candidates, settings, seed=seed, quick=quick,
                        budget=budget, batch=batch, executor=executor,
-                       make=_quick_model, plan=plan_for(quick))
+                       make=_quick_model, plan=plan_for(quick),
+                       failures=None if failure_model is None else FailureModel(failure_model))
     out["candidates_rule"] = _CANDIDATE_RULE
     return out
 
@@ -512,9 +516,9 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
                 success_probability=None if feas_model is None else
                 feas_model.success_probability)
             if feas_model is not None:
-                from .feasibility import LOW_SUCCESS
-                feasibility["proposals_below_threshold"] = [
-                    i + 1 for i, v in enumerate(proposals["p_success"]) if v < LOW_SUCCESS]
+                from .feasibility import proposals_below
+                feasibility["proposals_below_threshold"] = proposals_below(
+                    proposals["p_success"])
             batch = dict(proposals.attrs.get("batch") or {})
             proposals.attrs = {}  # the payload below carries it; keep the frame plain
             out["proposals"] = {"k": int(propose), "frozen": frozen,

@@ -91,6 +91,7 @@ from .scoring import stratified_bootstrap_index
 from .validation import choose_scheme
 
 __all__ = ["assess_feasibility", "FeasibilityModel", "CLASSIFIERS", "MIN_EACH",
+           "make_classifier", "unit_cube", "proposals_below",
            "LOW_SUCCESS", "MIN_SUCCESS", "weight_acquisition", "reliability_error"]
 
 #: Candidate classifiers, simplest first (the order breaks ties).
@@ -118,8 +119,8 @@ class _ConstantRate:
 class _SklearnClassifier:
     """A scikit-learn classifier of failure (label 1) with a constant-rate fallback."""
 
-    def __init__(self, kind: str, seed: int, d: int):
-        self.kind, self.seed, self.d = kind, seed, d
+    def __init__(self, kind: str, seed: int, d: int, kernel=None):
+        self.kind, self.seed, self.d, self.kernel = kind, seed, d, kernel
 
     def _make(self):
         if self.kind == "logistic":
@@ -127,6 +128,9 @@ class _SklearnClassifier:
         if self.kind == "forest":
             return RandomForestClassifier(n_estimators=100, min_samples_leaf=3,
                                           random_state=self.seed, n_jobs=1)
+        if self.kernel is not None:  # hyperparameters held fixed: Laplace fit only
+            return GaussianProcessClassifier(self.kernel, optimizer=None,
+                                             random_state=self.seed)
         kernel = ConstantKernel(1.0, (1e-2, 1e2)) * Matern(
             length_scale=np.full(max(self.d, 1), 0.5), length_scale_bounds=(1e-2, 1e2),
             nu=2.5)
@@ -150,8 +154,19 @@ class _SklearnClassifier:
         return self.model_.predict_proba(X)[:, col]
 
 
-def _make(kind: str, seed: int, d: int):
-    return _ConstantRate() if kind == "constant" else _SklearnClassifier(kind, seed, d)
+def _make(kind: str, seed: int, d: int, kernel=None):
+    return (_ConstantRate() if kind == "constant"
+            else _SklearnClassifier(kind, seed, d, kernel))
+
+
+def make_classifier(kind: str, seed: int, d: int, kernel=None):
+    """An unfitted classifier of failure of family ``kind`` (one of :data:`CLASSIFIERS`)
+    on ``d`` unit-cube features: ``fit(X, fail) -> self``, ``predict_fail(X)``.  A fit
+    on one class only predicts the smoothed constant rate.  ``kernel`` (``gp`` only)
+    holds the GP classifier's kernel fixed (no marginal-likelihood search)."""
+    if kind not in CLASSIFIERS:
+        raise ValueError(f"unknown classifier {kind!r}; use one of {CLASSIFIERS}")
+    return _make(kind, seed, d, kernel)
 
 
 class FeasibilityModel:
@@ -163,8 +178,30 @@ class FeasibilityModel:
 
     def fit_frame(self, frame: pd.DataFrame, fail: np.ndarray):
         X = _unit(self.space.encode(frame, "onehot"), self._bounds)
+        self.X_, self.fail_ = X, np.asarray(fail, dtype=int)
         self.model_ = _make(self.kind, self.seed, X.shape[1]).fit(X, fail)
         return self
+
+    def gp_kernel(self):
+        """A GP classifier's kernel fitted on the trials this model was fitted on: the
+        chosen model's own when it is ``gp``, else a fresh fit (marginal likelihood,
+        Laplace); ``None`` when the trials hold one class only."""
+        if self.fitted_kernel is not None:
+            return self.fitted_kernel
+        clf = _make("gp", self.seed, self.X_.shape[1]).fit(self.X_, self.fail_)
+        return getattr(clf.model_, "kernel_", None)
+
+    @property
+    def fitted_kernel(self):
+        """The GP classifier's fitted kernel (``None`` for other families or when the
+        fit saw one class only)."""
+        inner = getattr(self.model_, "model_", None)
+        return getattr(inner, "kernel_", None) if self.kind == "gp" else None
+
+    @property
+    def encoding_bounds(self) -> np.ndarray:
+        """The one-hot encoded bounds that map settings to the unit cube."""
+        return self._bounds
 
     def success_probability(self, frame: pd.DataFrame) -> np.ndarray:
         X = _unit(self.space.encode(frame, "onehot"), self._bounds)
@@ -176,10 +213,22 @@ class FeasibilityModel:
         return 1.0 - np.clip(self.model_.predict_fail(X), _CLIP, 1 - _CLIP)
 
 
+def unit_cube(X, bounds) -> np.ndarray:
+    """One-hot encoded settings mapped to the unit cube of ``bounds`` (d, 2)."""
+    return _unit(np.asarray(X, dtype=float), np.asarray(bounds, dtype=float))
+
+
 def _unit(X, bounds):
     lo, hi = bounds[:, 0], bounds[:, 1]
     span = np.where(hi - lo > 1e-12, hi - lo, 1.0)
     return (X - lo) / span
+
+
+def proposals_below(p_success, threshold: float = LOW_SUCCESS) -> list[int]:
+    """1-based numbers of the proposals whose P(success) is below ``threshold`` (the
+    ones the report and the terminal warn about)."""
+    return [i + 1 for i, v in enumerate(np.asarray(p_success, dtype=float))
+            if not v >= threshold]
 
 
 def reliability_error(fail, p_fail, n_bins: int = 5) -> float:
@@ -365,12 +414,14 @@ def _failure_map(model: FeasibilityModel, frame: pd.DataFrame, names: list[str],
             axes.append((name, [float(v) for v in vals]))
     grids = np.meshgrid(*[np.arange(len(v)) for _, v in axes], indexing="ij")
     flat = [g.ravel() for g in grids]
-    pf = np.empty(len(flat[0]))
-    for c in range(len(pf)):
-        f = base.copy()
-        for (name, vals), g in zip(axes, flat):
-            f[name] = vals[g[c]]
-        pf[c] = float(np.mean(1.0 - model.success_probability(f)))
+    # every grid cell x every base row in one prediction (one call per cell was the
+    # slowest step of a run: 625 forest predictions)
+    n_cells, n_base = len(flat[0]), len(base)
+    big = base.iloc[np.tile(np.arange(n_base), n_cells)].reset_index(drop=True)
+    for (name, vals), g in zip(axes, flat):
+        col = np.asarray(vals, dtype=object)[np.repeat(g, n_base)]
+        big[name] = col if isinstance(vals[0], str) else col.astype(float)
+    pf = (1.0 - model.success_probability(big)).reshape(n_cells, n_base).mean(axis=1)
     shape = tuple(len(v) for _, v in axes)
     return {"parameters": [n for n, _ in axes],
             "values": [[v if isinstance(v, str) else float(v) for v in vals]

@@ -181,3 +181,106 @@ def test_weighted_proposals_avoid_the_failure_region(tmp_path):
     assert np.mean(inside_u > EDGE) >= 0.6
     assert np.all(inside_w <= EDGE + 0.05)
     assert np.mean(inside_w > 0.8) <= 0.1
+
+
+# -- the simulated campaigns of the backtest with failures --------------------------------
+def _weighted_and_unweighted(t, model, seed):
+    from advisor.acquisition import parse_settings
+    from advisor.backtest import FailureModel, plan_for, run_backtest
+
+    out = {}
+    for weighted in (True, False):
+        bt = run_backtest(t, ["gp"], parse_settings("ei:xi=0.01"), seed=seed, quick=True,
+                          budget=12, plan=plan_for(True, replay=False, sim_functions=4,
+                                                   sim_seeds=2),
+                          failures=FailureModel(model, weighted=weighted))
+        (res,) = bt["simulated"]["results"]
+        assert res["error"] is None
+        out[weighted] = (bt, res)
+    return out
+
+
+@pytest.mark.slow
+def test_backtest_weighting_wastes_fewer_trials_in_the_failure_region(tmp_path):
+    # Simulated campaigns on 3 seeded logs with the known region (x1 > 0.65 fails with
+    # probability 0.97), 4 stand-ins x 2 starts each, 10 picks per run: the same runs
+    # (same stand-ins, starts, failure outcomes by common random numbers) with EI and with
+    # EI x P(success).  Stated test: one-sided Wilcoxon signed-rank on the 24 paired
+    # differences of failed picks (scipy), weighted < unweighted at level 0.05.
+    # Measured on this machine: failed picks 10 vs 22 of 80 on seed 0.
+    from scipy.stats import wilcoxon
+
+    w_fail, u_fail, w_auc, u_auc = [], [], [], []
+    for seed in range(3):
+        t = _log_with_region(tmp_path, seed=seed)
+        model = F.assess_feasibility(t, seed=seed, quick=True)["_model"]
+        out = _weighted_and_unweighted(t, model, seed)
+        (bt_w, res_w), (bt_u, res_u) = out[True], out[False]
+        # the failure outcomes and starts are the same in both (paired design)
+        assert bt_w["simulated"]["failures"]["failed_share"] == \
+            bt_u["simulated"]["failures"]["failed_share"]
+        # each stand-in's region is where the log's failures are: x1 > 0.65 fails far
+        # more often than x1 < 0.65 (our fixture's truth, not the code's output)
+        assert 0.2 < np.mean(bt_w["simulated"]["failures"]["failed_share"]) < 0.5
+        runs_w = sorted(res_w["runs"], key=lambda r: (r["unit"], r["seed_index"]))
+        runs_u = sorted(res_u["runs"], key=lambda r: (r["unit"], r["seed_index"]))
+        w_fail += [r["failed_picks"] for r in runs_w]
+        u_fail += [r["failed_picks"] for r in runs_u]
+        w_auc += [r["auc"] for r in runs_w]
+        u_auc += [r["auc"] for r in runs_u]
+    w_fail, u_fail = np.asarray(w_fail), np.asarray(u_fail)
+    p = wilcoxon(w_fail, u_fail, alternative="less").pvalue
+    print(f"failed picks weighted {w_fail.sum()} vs unweighted {u_fail.sum()} of "
+          f"{10 * len(w_fail)}; Wilcoxon p = {p:.3g}; mean AUC {np.mean(w_auc):.3f} vs "
+          f"{np.mean(u_auc):.3f}")
+    assert w_fail.sum() < u_fail.sum()
+    assert p < 0.05
+    # and the weighting does not buy that with worse regret (regret over successful
+    # trials only): the mean normalized-regret AUC is no worse by more than 0.02
+    assert np.mean(w_auc) <= np.mean(u_auc) + 0.02
+
+
+class _NeverFails:
+    """A failure model under which no trial fails (P(success) = 1 everywhere)."""
+
+    kind = "gp"
+
+    def __init__(self, space):
+        from sklearn.gaussian_process.kernels import Matern
+
+        self.encoding_bounds = space.encoded_bounds("onehot")
+        self._kernel = Matern(length_scale=np.full(len(self.encoding_bounds), 0.5), nu=2.5)
+
+    def success_probability(self, frame):
+        return np.ones(len(frame))
+
+    def gp_kernel(self):
+        return self._kernel
+
+
+def test_backtest_hook_changes_nothing_when_nothing_fails(tmp_path):
+    # With a failure model under which nothing fails, the simulated campaigns give the
+    # same starts, picks and scores as the backtest without the hook (the weighting by a
+    # constant P(success) keeps EI's and PI's order); only the added keys differ.
+    from advisor.acquisition import parse_settings
+    from advisor.backtest import FailureModel, plan_for, run_backtest
+
+    rng = np.random.default_rng(4)
+    df = pd.DataFrame({"a": rng.random(30), "b": rng.random(30)})
+    df["y"] = (df["a"] - 0.3) ** 2 + df["b"] + 0.01 * rng.standard_normal(30)
+    df.to_csv(tmp_path / "clean.csv", index=False)
+    t = advisor.load_trials(tmp_path / "clean.csv", objective="y")
+    kw = dict(seed=3, quick=True, budget=7,
+              plan=plan_for(True, replay=False, sim_functions=2, sim_seeds=1,
+                            sim_extra_candidates=40))
+    settings = parse_settings("ei:xi=0.01;pi;random")
+    plain = run_backtest(t, ["gp"], settings, **kw)
+    hooked = run_backtest(t, ["gp"], settings, failures=FailureModel(_NeverFails(t.space)),
+                          **kw)
+    info = hooked["simulated"].pop("failures")
+    assert info["failed_share"] == [0.0, 0.0]
+    assert all(len(r["runs"]) == 2 for r in hooked["simulated"]["results"])
+    for r in hooked["simulated"]["results"]:
+        for run in r["runs"]:
+            assert run.pop("failed_picks") == 0
+    assert hooked == plain

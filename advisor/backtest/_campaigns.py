@@ -36,6 +36,12 @@ refitted with those hyperparameters held, any other model kept as it was.  This 
 the "prior/posterior draws as test functions" practice of e.g. Hennig & Schuler (2012,
 sec. 4); the candidate-set construction and the second class are ours.
 
+**Failed trials** (only when ``run_backtest`` is given ``failures``, i.e. the log has a
+model of failure): the stand-ins' candidates fail where that model says, a failed trial
+gives no value, every model-based setting is weighted by P(success) from the run's own
+outcomes and regret counts successful trials only; the rules are in
+:mod:`advisor.backtest._failures`.  Without it nothing changes.
+
 Summaries (per surrogate × setting, and for the baselines), over all runs
 (campaign or stand-in × seed):
 
@@ -169,7 +175,7 @@ __all__ = ["BacktestPlan", "plan_for", "run_backtest", "choose_setting", "replay
 def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSetting], *,
                  seed: int, quick: bool, budget: int | None = None, batch: int = 1,
                  executor: Executor | None = None, make: Callable = make_surrogate,
-                 plan: BacktestPlan | None = None) -> dict:
+                 plan: BacktestPlan | None = None, failures=None) -> dict:
     """Backtest every surrogate × acquisition setting; a JSON-ready dict.
 
     Parameters
@@ -193,6 +199,10 @@ def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSettin
         (a top-level function) for a parallel executor.
     plan : BacktestPlan, optional
         Overrides the quick/full plan.
+    failures : FailureModel, optional
+        The log's model of trial failure: simulated trials then fail where it says and
+        every model-based setting is weighted by P(success)
+        (:mod:`advisor.backtest._failures`).  None (default): no trial fails.
 
     Returns
     -------
@@ -225,7 +235,7 @@ def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSettin
                                                            settings, seed, quick, batch,
                                                            plan, make)
     sim_info, sim_units, sim_tasks, sim_keys = _simulated_grid(
-        trials, surrogates, settings, seed, quick, budget, batch, plan, make)
+        trials, surrogates, settings, seed, quick, budget, batch, plan, make, failures)
     outputs = executor.map(_pool_task, replay_tasks + sim_tasks, label="backtest")
     replay_out, sim_out = outputs[:len(replay_tasks)], outputs[len(replay_tasks):]
 
@@ -287,6 +297,8 @@ def _collect(part, units, keys, outputs, surrogates, settings, failures, trials)
                "trials_to_best5": scored["ttb"], "censored": scored["censored"]}
         if unit["lines"] is not None:
             run["picked_lines"] = [int(unit["lines"][i]) for i in seq]
+        if unit.get("failed") is not None:  # trials spent in failures (_failures.py)
+            run["failed_picks"] = int(unit["failed"][list(res["picked"])].sum())
         runs.setdefault(key, []).append((run, scored))
         if res["draws"]:
             draws[key] = res["draws"]

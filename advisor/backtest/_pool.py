@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from typing import Callable, Sequence
 
+import copy
+
 import numpy as np
 import pandas as pd
 from threadpoolctl import threadpool_limits
@@ -17,7 +19,7 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
                 *, batch: int = 1, method: str = "kriging_believer", refit_every: int = 1,
                 model_seed: int = 0, rng: np.random.Generator | int = 0,
                 quick: bool = False, cache: dict | None = None,
-                reoptimize_every: int | None = None
+                reoptimize_every: int | None = None, failures=None
                 ) -> tuple[list[int], str | None]:
     """Run one pool-based campaign and return the picked pool indices in pick order.
 
@@ -52,6 +54,10 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
         ``with_fixed_hyperparameters()`` is refitted at every refit step with the
         hyperparameters of its last full fit held, and any other model is kept as it
         was (the incumbent is always current).  None: a full fit at every refit step.
+    failures : RunFailures, optional
+        Which pool members fail (:mod:`advisor.backtest._failures`): the model is then
+        fitted on the successful trials only and the acquisition weighted by the run's
+        own P(success).  None (default): every trial succeeds.
 
     Returns
     -------
@@ -81,13 +87,17 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
         if setting.name == "random":
             sel = rng.choice(len(cand), size=q, replace=False)
         else:
-            Xt, yt = X[used], y[used]
+            rows = used if failures is None else failures.successful(used)
+            Xt, yt = X[rows], y[rows]
             if model is None or step % max(1, int(refit_every)) == 0:
-                model = state.fit(build, Xt, yt, tuple(used), step, reoptimize_every,
+                model = state.fit(build, Xt, yt, tuple(rows), step, reoptimize_every,
                                   cache) or model
-            s = select_batch(model, setting, X[cand], incumbent(model, Xt), q, rng, method,
-                             y_scale=_scale(yt), X_train=Xt, y_train=yt,
-                             refit=_fantasy_refit(model, build))
+            if failures is not None:  # the run's own classifier of failure, every pick
+                failures.refit(space, frame, used)
+            pick = select_batch if failures is None else failures.selector(cand)
+            s = pick(model, setting, X[cand], incumbent(model, Xt), q, rng, method,
+                     y_scale=_scale(yt), X_train=Xt, y_train=yt,
+                     refit=_fantasy_refit(model, build))
             sel, draws = s.indices, draws or s.draws
         idx = [int(i) for i in cand[sel]]
         picked.extend(idx)
@@ -149,7 +159,8 @@ def _scale(y) -> float:
 
 
 def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, batch,
-               method, refit_every, model_seed, rng_seeds, quick, reoptimize_every=None):
+               method, refit_every, model_seed, rng_seeds, quick, reoptimize_every=None,
+               failures=None):
     """Executor task: every setting of one surrogate on one pool and start.
 
     Returns one ``{"picked", "draws", "error"}`` per setting; an exception is recorded,
@@ -166,7 +177,8 @@ def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, b
                     make, surrogate, AcquisitionSetting.from_dict(setting_dict), space,
                     frame, y, init, n_picks, batch=batch, method=method,
                     refit_every=refit_every, model_seed=model_seed, rng=rng_seed,
-                    quick=quick, cache=cache, reoptimize_every=reoptimize_every)
+                    quick=quick, cache=cache, reoptimize_every=reoptimize_every,
+                    failures=None if failures is None else copy.deepcopy(failures))
                 out.append({"picked": picked, "draws": draws, "error": None})
             except Exception as exc:  # a failing surrogate is recorded, never fatal
                 out.append({"picked": None, "draws": None,

@@ -20,7 +20,8 @@ _CLASS_TEXT = {
 }
 
 
-def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, plan, make):
+def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, plan, make,
+                    failures=None):
     units, tasks, keys = {}, [], []
     if not plan.simulate:
         return None, units, tasks, keys
@@ -70,24 +71,36 @@ def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, pl
                         "when it exceeds the budget, topped up with random settings "
                         "when it falls short; random run order"},
             "functions": []}
+    # with a model of failure (_failures.py): candidates fail where it says, failed
+    # trials are scored at the stand-in's worst successful value, starts succeed
+    region = None if failures is None else failures.region(stand.frame, len(stand.values),
+                                                           seed)
+    if region is not None:
+        info["failures"] = region.info()
     for f in range(len(stand.values)):
-        v = stand.values[f]
+        v = stand.values[f] if region is None else region.scored_values(f, stand.values[f])
+        starts = np.arange(n_space)
+        if region is not None:
+            allowed = region.allowed_starts(f)
+            starts = allowed[allowed < n_space] if np.sum(allowed < n_space) >= k else allowed
         inits = []
         for s in range(plan.sim_seeds):
             r = np.random.default_rng(task_seed(seed, "sim-init", f, s))
             # starts among the space samples, as the next campaign's random start
-            inits.append(sorted(int(i) for i in r.choice(n_space, size=k, replace=False)))
+            inits.append(sorted(int(i) for i in r.choice(starts, size=k, replace=False)))
         uid = f"f{f}"
-        units[uid] = {"id": uid, "y": v, "lo": float(stand.optimum[f]), "hi": float(v.max()),
+        lo = float(stand.optimum[f]) if region is None else float(v.min())
+        units[uid] = {"id": uid, "y": v, "lo": lo, "hi": float(v.max()),
                       "threshold": _best_k_threshold(v), "inits": inits, "length": total,
-                      "lines": None, "ordered": False, "grid": grid_rows}
+                      "lines": None, "ordered": False, "grid": grid_rows,
+                      "failed": None if region is None else region.failed[f]}
         info["functions"].append({"id": uid, "class": stand.classes[f],
-                                  "optimum": float(stand.optimum[f]),
+                                  "optimum": lo,
                                   "worst": float(v.max()),
                                   "argmin_is_logged": bool(stand.argmin[f] < stand.n_logged),
                                   "argmin_is_grid": bool(stand.argmin[f] >= n_space)})
         # one noise draw per stand-in, shared by every setting (paired)
-        v_obs = v + stand.noise_std * np.random.default_rng(
+        v_obs = stand.values[f] + stand.noise_std * np.random.default_rng(
             task_seed(seed, "sim-noise", f)).standard_normal(len(v))
         for name in surrogates:
             for s, init in enumerate(inits):
@@ -98,7 +111,9 @@ def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, pl
                               task_seed(seed, "model", name, "simulated", uid, s),
                               [task_seed(seed, "acq", name, st.label, "simulated", uid, s)
                                for st in settings], quick,
-                              plan.reoptimize_every))
+                              plan.reoptimize_every)
+                             + (() if region is None else (region.for_function(
+                                 f, task_seed(seed, "sim-fail-model", name, uid, s)),)))
                 keys.append((name, uid, s))
     return info, units, tasks, keys
 

@@ -35,7 +35,7 @@ from ..scoring import CALIBRATION_LEVELS, COVERAGE_LEVELS
 __all__ = ["PALETTE", "ModelStyle", "model_styles", "figure_png", "reliability_figure",
            "coverage_figure", "predicted_observed_figure", "fold_spread_figure",
            "backtest_figure", "relevance_figure", "learning_curve_figure", "cost_figure",
-           "proposals_figure", "REFERENCE_STYLE"]
+           "proposals_figure", "failure_map_figure", "REFERENCE_STYLE"]
 
 #: Our palette, ordered so that consecutive slots alternate dark/light and warm/cool.
 #: Approximate CIE L* (D65) in the comment; checked in tests/test_figures.py.
@@ -612,4 +612,86 @@ def proposals_figure(proposals, objective_label: str = "objective",
     ax.set_xlabel(xlabel)
     ax.set_ylabel(ylabel)
     _legend(ax, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=2)
+    return fig
+
+
+def failure_map_figure(fmap: Mapping | None, log_axes: Sequence[bool] = (),
+                       points=None) -> Figure:
+    """The failure-probability map of :mod:`advisor.feasibility`: the chosen classifier's
+    partial dependence of P(failure) on one parameter (a line) or two (a shaded grid
+    with a colour bar), with the logged trials on top (``points``: a frame of the
+    map's parameters and a boolean ``failed`` column; failed trials as crosses).
+
+    ``log_axes`` says which map parameters are on a log scale; categorical parameters
+    (string values) are drawn at their level positions.
+    """
+    names = list((fmap or {}).get("parameters") or [])
+    fig = _figure(_WIDTH, 2.7 if len(names) == 2 else 2.2)
+    ax = fig.add_subplot()
+    _axes_style(ax)
+    if not names:
+        _empty(ax, "no failure map: the chosen classifier is the constant rate or no "
+               "parameter raises the held-out log loss when permuted", "", "P(failure)")
+        return fig
+    values = [list(v) for v in fmap["values"]]
+    pf = np.asarray(fmap["failure_probability"], dtype=float)
+    logs = list(log_axes) + [False] * (2 - len(log_axes))
+
+    def coords(vals):
+        cat = any(isinstance(v, str) for v in vals)
+        return (np.arange(len(vals), dtype=float) if cat else np.asarray(vals, float)), cat
+
+    def setup(scale_set, ticks_set, vals, cat, log):
+        if cat:
+            ticks_set(np.arange(len(vals)), [_short(str(v), 12) for v in vals])
+        elif log:
+            scale_set("log")
+
+    def point_xy(name, vals, cat):
+        col = points[name]
+        if cat:
+            lookup = {str(v): i for i, v in enumerate(vals)}
+            return col.astype(str).map(lookup).to_numpy(dtype=float)
+        return col.to_numpy(dtype=float)
+
+    have_points = points is not None and len(points) and all(n in points for n in names)
+    x, xcat = coords(values[0])
+    if len(names) == 1:
+        ax.plot(x, pf, color=PALETTE[5], linewidth=1.4,
+                marker="o" if xcat else "", markersize=3, label="P(failure), partial dependence")
+        if have_points:
+            px = point_xy(names[0], values[0], xcat)
+            failed = points["failed"].to_numpy(bool)
+            ax.plot(px[~failed], np.zeros((~failed).sum()) - 0.03, "|", color=PALETTE[2],
+                    markersize=5, label="logged: succeeded")
+            ax.plot(px[failed], np.ones(failed.sum()) * 1.03, "x", color="#222222",
+                    markersize=3.5, label="logged: failed")
+        ax.set_ylim(-0.07, 1.07)
+        ax.set_ylabel("P(failure)")
+        ax.set_xlabel(names[0])
+        setup(ax.set_xscale, ax.set_xticks, values[0], xcat, logs[0])
+        _legend(ax, loc="best")
+        return fig
+    y, ycat = coords(values[1])
+    mesh = ax.pcolormesh(x, y, pf.T, shading="nearest", cmap="cividis_r", vmin=0.0,
+                         vmax=1.0)
+    bar = fig.colorbar(mesh, ax=ax, pad=0.01)
+    bar.set_label("P(failure), partial dependence", size=_TEXT - 0.5)
+    bar.ax.tick_params(labelsize=_TEXT - 1)
+    ax.grid(False)
+    if have_points:
+        px = point_xy(names[0], values[0], xcat)
+        py = point_xy(names[1], values[1], ycat)
+        failed = points["failed"].to_numpy(bool)
+        ax.scatter(px[~failed], py[~failed], s=7, facecolors="white", edgecolors="#222222",
+                   linewidths=0.4, label="logged: succeeded")
+        ax.scatter(px[failed], py[failed], s=14, marker="x", color="#b5121b",
+                   linewidths=0.9, label="logged: failed")
+        _legend(ax, loc="upper left", bbox_to_anchor=(0.0, 1.13), ncol=2)
+    ax.set_xlabel(names[0])
+    ax.set_ylabel(names[1])
+    setup(ax.set_xscale, ax.set_xticks, values[0], xcat, logs[0])
+    setup(ax.set_yscale, ax.set_yticks, values[1], ycat, logs[1])
+    if logs[0] or logs[1]:
+        _plain_log_ticks(ax)
     return fig

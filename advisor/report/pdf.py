@@ -1,7 +1,7 @@
 """The design-review document: an assessment as a PDF a team can read at a review.
 
-Sections, in order (every one present even when its evidence did not run, then saying
-so in one line):
+Sections, in order (every one of 1-6 present even when its evidence did not run, then
+saying so in one line):
 
 1. **Recommendation** -- the surrogate, acquisition setting and variance scaling in one
    sentence, the confidence in plain words, the runner-up and what separates them, the
@@ -17,6 +17,9 @@ so in one line):
    with predicted intervals and the cautions beside it, learning curve, cost projection.
 6. **Method and reproducibility** -- metric definitions and sources, validation scheme,
    ranking rule, command, seed, versions, date, input SHA-256.
+7. **Where trials fail** -- only when the log has failed trials: the classifiers of
+   success/failure and their scores, the parameters that drive failure, the
+   failure-probability map (a line saying why when the model was skipped).
 
 Each section's content and rendering live in its own module under
 :mod:`advisor.report.sections` (shared with the notebook view); this module joins them

@@ -150,6 +150,12 @@ def _print_feasibility(con, d) -> None:
     low = f.get("proposals_below_threshold") or []
     con.print(f"failure model: {f['chosen']} ({escape(f.get('evidence', ''))}); "
               f"{f['failed']} of {f['trials']} trials failed"
-              + (f"; failures depend most on {', '.join(top)}" if top else "")
-              + (f"; proposals {', '.join(map(str, low))} have P(success) below "
-                 f"{f['low_success_threshold']:.0%}" if low else ""))
+              + (f"; failures depend most on {', '.join(top)}" if top else ""))
+    if low:  # beside the caution, which the caller prints next
+        rows = ((d.get("planning") or {}).get("proposals") or {}).get("rows") or []
+        ps = [f"#{i}: {rows[i - 1]['p_success']:.0%}" for i in low
+              if i <= len(rows) and rows[i - 1].get("p_success") is not None]
+        con.print(f"[bold]warning:[/] {len(low)} proposal(s) likely to fail, P(success) "
+                  f"below {f['low_success_threshold']:.0%} ({', '.join(ps) or low}); "
+                  "check them against your safe operating limits or leave them out. "
+                  "P(success) is an estimate from the log, not a safety assessment.")

@@ -13,11 +13,11 @@ heading to :data:`SECTIONS` and the module to :data:`ORDER`.  Adding a table: re
 
 from __future__ import annotations
 
-from . import backtest, data, evidence, method, next_campaign, recommendation
+from . import backtest, data, evidence, feasibility, method, next_campaign, recommendation
 from ._base import CAUTION, SECTIONS, FigureSpec, TableData, _View
 
 #: Section modules in document order (their headings are :data:`SECTIONS`).
-ORDER = (recommendation, data, evidence, backtest, next_campaign, method)
+ORDER = (recommendation, data, evidence, backtest, next_campaign, method, feasibility)
 
 #: Every named report figure, in document order: name -> :class:`FigureSpec`.
 FIGURES = {name: spec for mod in ORDER for name, spec in getattr(mod, "FIGURES", {}).items()}

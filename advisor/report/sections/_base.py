@@ -28,7 +28,8 @@ CAUTION = ("This report is statistical advice drawn from past trial logs. It doe
 
 #: Section headings, in document order.
 SECTIONS = ("1  Recommendation", "2  Data", "3  Evidence per surrogate",
-            "4  Acquisition backtest", "5  Next campaign", "6  Method and reproducibility")
+            "4  Acquisition backtest", "5  Next campaign", "6  Method and reproducibility",
+            "7  Where trials fail")
 
 #: A campaign whose failure share reaches this is flagged (our choice: one trial in five
 

@@ -7,6 +7,7 @@ from __future__ import annotations
 from reportlab.lib.units import mm
 from reportlab.platypus import KeepTogether, Paragraph, Spacer
 
+from .feasibility import low_success_flowables
 from ._base import (FigureSpec, CAUTION, _RULE, _S, _TEXT_W, _View, _box, _cells, _e,
                     _heading, _image, _name, _num, _p, _side_by_side, _table)
 
@@ -95,7 +96,8 @@ def story(v: _View) -> list:
                                   + _proposal_tables(v, props) + [_side_by_side(
             [_image(fig["proposals"][0](v), _TEXT_W / 2 - 4),
              _p(fig["proposals"][1], "caption")],
-            _box(_planning_caution(), "Before running these", _TEXT_W / 2 - 6))]))
+            _box(_planning_caution(), "Before running these", _TEXT_W / 2 - 6))]
+            + low_success_flowables(v)))
     else:
         story += [Paragraph("Proposed first batch", _S["h2"]),
                   _p("No proposals were requested for this report.")]
@@ -145,7 +147,8 @@ def _proposal_tables(v: _View, props) -> list:
             rows.append(_cells([_e(p)] + [_e(_fmt_setting(props[p].iloc[i])) for i in idx]))
         for key, lab in (("predicted_mean", f"predicted {v.objective_label}"),
                          ("predicted_low_90", "90% interval low"),
-                         ("predicted_high_90", "90% interval high")):
+                         ("predicted_high_90", "90% interval high"),
+                         ("p_success", "P(success), section 7")):
             if key in props:
                 rows.append(_cells([f"<b>{_e(lab)}</b>"]
                                    + [_num(props[key].iloc[i]) for i in idx]))
