@@ -32,14 +32,18 @@ def small():
 
 
 # Known shortfall, kept visible (strict: the mark fails the suite once the claim holds):
-# measured 2026-12-02 at the small size, the advisor recommended Thompson sampling on
-# Branin (its simulated backtest called it better than the default); run for real it
-# ended at 0.35 normalized regret against the default's 0.23, so the one-sided upper
-# bound of (recommended - default) is 0.16 > 0.10.  Issue "Acquisition advice that
-# beats a fixed default" stays open on this.
+# measured 2026-12-02 at the small size with the two-class stand-ins (GP draws and
+# forest functions, 24 paired simulated runs per setting): on Branin the default now
+# stands (0.23 = the default's 0.23; before, Thompson had been recommended and lost,
+# 0.35 vs 0.23), but on Hartmann-3 the backtest found Thompson better than the default
+# at the Holm level and, run for real, it ended at 0.23 normalized regret against the
+# default's 0.02: mean difference 0.105, one-sided upper bound 0.32 > 0.10.  The
+# stand-ins, drawn from models of a 36-trial log clustered near three optima, reward
+# exploration more than the true function does.  Issue "Acquisition advice that beats
+# a fixed default" stays open on this.
 @pytest.mark.slow
 @pytest.mark.xfail(strict=True, reason="recommended setting worse than the default on "
-                   "Branin (0.35 vs 0.23); see the comment above")
+                   "Hartmann-3 (0.23 vs 0.02); see the comment above")
 def test_recommended_not_worse_than_default(small):
     t = small["tests"]["not_worse_than_default"]
     assert t["upper_95"] < t["margin"], t
@@ -54,8 +58,9 @@ def test_recommended_beats_random_and_grid_search(small):
 
 # Known shortfall at this size (strict): 8 replicates on Hartmann-3 cannot show the
 # batch effect the full benchmark shows (full size: q = 4 beats random, p = 0.004, and
-# is within 0.15 of sequential, bound 0.021; small size measured: beats random p = 0.125,
-# within-sequential bound 0.62, single runs near 1.1-1.9x random dominating).
+# is within 0.15 of sequential, bound 0.021; small size measured again 2026-12-02:
+# beats random p = 0.125, batch 0.55 vs sequential 0.03 vs random 1.00, within-
+# sequential bound 0.95; single runs near 1.1-1.9x random dominating).
 @pytest.mark.slow
 @pytest.mark.xfail(strict=True, reason="small size lacks the power the full benchmark "
                    "has; see the comment above")

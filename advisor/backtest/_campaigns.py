@@ -14,21 +14,27 @@ the campaign's logged best: the replay can only show how *fast* a setting would 
 got there, never better.  This is the offline replay idea of Li, Chu, Langford & Wang
 (2011) applied to a finite design pool; the details below are our choices.
 
-**Simulated campaigns** (on stand-ins with a known optimum).  The project GP is fitted
-to all logged trials and ``sim_functions`` functions are drawn *jointly* from its
-posterior (``sample_y``) on a candidate set of fresh uniform samples of the same
-parameter space (issue 12: candidate sets that were mostly logged points favoured
-revisiting).  Each stand-in is defined on that finite set only, so its
-minimum over the set is exactly known and the simple regret
-:math:`r_t = \\min_{s \\le t} f(x_s) - \\min_C f` is exact.  Every surrogate and setting
-runs a pool campaign of ``budget`` trials on each stand-in from ``sim_n_init`` random
-starting points (the same for every setting: a paired design); random search from the
-same start is the baseline.  The surrogates observe the draw plus normal noise at the
-sampler's fitted noise level (one noise draw per candidate and stand-in, the same for
-every setting); the regret is scored on the noise-free draw.  Models are refitted at
-every step (``refit_every``) with their quick budget; nothing is carried between fits.  This follows the "prior/posterior draws as
-test functions" practice of e.g. Hennig & Schuler (2012, sec. 4); the candidate-set
-construction is ours.
+**Simulated campaigns** (on stand-ins with a known optimum), the evidence.  Stand-in
+functions are drawn from models of two classes fitted to all logged trials, half each
+(``sim_classes``, :mod:`._standins`): joint GP posterior draws (``sample_y``) and
+bootstrap-forest functions (the mean of 5 distinct bootstrap trees), on a candidate set
+of fresh uniform samples of the parameter space (issue 12: candidate sets that were
+mostly logged points favoured revisiting) plus the grid-search designs.  Each stand-in
+is defined on that finite set only, so its minimum over the set is exactly known and the
+simple regret :math:`r_t = \\min_{s \\le t} f(x_s) - \\min_C f` is exact.  Every surrogate
+and setting runs a pool campaign of ``budget`` trials on each stand-in from ``n_init``
+random starting points (the same for every setting: a paired design).  Baselines on the
+same functions: random search from the same start, and grid search (:mod:`._grid`, a
+full factorial sized to the budget, one design per start index).  The surrogates observe
+the stand-in plus normal noise at the GP's fitted noise level (one noise draw per
+candidate and stand-in, the same for every setting); the regret is scored on the
+noise-free values.  Models are refitted at every step (``refit_every``) with their quick
+budget; cheap updates (``reoptimize_every``): a full fit, hyperparameters re-optimized,
+every ``reoptimize_every`` steps or when the training set has doubled since the last
+one, and in between a model offering ``with_fixed_hyperparameters()`` (the GP) is
+refitted with those hyperparameters held, any other model kept as it was.  This follows
+the "prior/posterior draws as test functions" practice of e.g. Hennig & Schuler (2012,
+sec. 4); the candidate-set construction and the second class are ours.
 
 **Failed trials** (only when ``run_backtest`` is given ``failures``, i.e. the log has a
 model of failure): the stand-ins' candidates fail where that model says, a failed trial
@@ -58,18 +64,23 @@ Budgets (each a field of :class:`BacktestPlan`, quick / full):
                                            by the order column, so seeds vary the model
                                            and the Thompson / random draws)
 ``replay_max_picks``       10 / 24         picks after the start
-``refit_every``            5 / 3           picks between refits (stale model in between,
+``refit_every``            1 / 1           steps between refits (stale model in between,
                                            incumbent always current)
+``reoptimize_every``       5 / 5           steps between full fits (see above; None =
+                                           every refit is a full fit)
 ``random_orders``          32 / 200        shuffles for the random-order baseline
-``sim_functions``          4 / 4           posterior draws (stand-ins)
-``sim_seeds``              2 / 1           runs per stand-in (different random starts)
-``sim_extra_candidates``   200 / 500       space samples added to the logged settings
-``sim_max_budget``         12 / 24         cap on the simulated budget
+``sim_functions``          8 / 8           stand-ins, half per class in ``sim_classes``
+``sim_seeds``              3 / 4           runs per stand-in (different random starts)
+``sim_extra_candidates``   200 / 400       fresh space samples in the candidate set
+``sim_max_budget``         12 / 20         cap on the simulated budget
+``grid``                   True            grid search as a simulated baseline
 =========================  ==============  ===============================================
 
-The full plan was cut from "every pick, refit each step, 3 seeds, 8 stand-ins" after
-that took 15 minutes for three surrogates on a 130-trial log; the class defaults keep
-the exhaustive values for callers who want them (``plan=BacktestPlan()``).
+Quick mode thus makes 24 paired runs per setting, thorough 32: enough that a true AUC
+difference of 0.1 is found at the strictest Holm level with power >= 0.8 on the logs
+measured (``power_at_0.1`` in each decision; README "What the backtest runs").  The
+class defaults (``plan=BacktestPlan()``) keep exhaustive values: full fits at every
+step.
 
 The simulated budget defaults to the median campaign size of the log (the size of the
 next campaign is most likely like the past ones).  With ``batch = q > 1`` each step picks
@@ -97,12 +108,20 @@ Output of :func:`run_backtest` (plain dicts, lists, str, int, float, bool, None)
       results     [RESULT, ...]  one per surrogate x setting, surrogate-major order
       random      SUMMARY + {label: "random order", per_unit_mean_auc: {campaign: float}}
       actual      SUMMARY + {label: "actual order", note}
+      paired_test {surrogate: the replay's own paired test against the default,
+                   see :func:`._replay.replay_paired_test`}
     simulated     None when plan.simulate is False; {error: str, functions: [],
                   results: []} when no stand-ins could be drawn; else
-      error None, budget, n_init, candidates, logged_candidates, sampler, observations,
-      functions   [{id: "f0", optimum, worst, argmin_is_logged}, ...]
+      error None, budget, n_init, candidates, logged_candidates, space_samples,
+      grid_candidates, sampler ("gp+forest"), noise_std, observations, runs_per_setting,
+      updates (text), standins: {classes: {class: count}, share, descriptions, failed},
+      grid_design: {levels_per_parameter, parameters, rule} | None,
+      functions   [{id: "f0", class, optimum, worst, argmin_is_logged,
+                    argmin_is_grid}, ...]
       results     [RESULT, ...]
       random      SUMMARY + {label, per_unit_mean_auc: {function id: float}}
+      grid        SUMMARY + {label: "grid search", per_unit_mean_auc, runs: [{unit,
+                    seed_index, auc, trials_to_best5, censored}]}  (when plan.grid)
     failures      [{surrogate, acquisition: {name, params}, label, experiment,
                     runs_failed, error (the first one)}, ...]
     per_surrogate {name: CHOICE}    the best setting for each surrogate
@@ -133,324 +152,24 @@ Problems, Springer, 131-162.
 
 from __future__ import annotations
 
-import copy
-import dataclasses
-import math
-from dataclasses import dataclass
-from typing import Callable, Sequence
+from typing import Callable
 
 import numpy as np
-import pandas as pd
-from threadpoolctl import threadpool_limits
 
-from ..acquisition import BATCH_METHODS, AcquisitionSetting, incumbent, select_batch
+from ..acquisition import BATCH_METHODS, AcquisitionSetting
 from ..errors import UsageError
 from ..execution import Executor, task_seed
 from ..surrogates import make_surrogate
+from ._choice import DEFAULT_LABEL, _decide, _overall_choice, choose_setting
+from ._plan import BacktestPlan, plan_for
+from ._pool import _pool_task, replay_pool
+from ._replay import _replay_grid, _skipped_campaigns, campaign_pools, replay_paired_test
+from ._simulated import _simulated_grid
+from ._standins import StandIns, posterior_standins
+from ._summaries import _band, _score_sequence, _stats, _summarize
 
 __all__ = ["BacktestPlan", "plan_for", "run_backtest", "choose_setting", "replay_pool",
-           "posterior_standins", "StandIns", "campaign_pools"]
-
-_TIE = 1e-9
-
-
-# -- plan -----------------------------------------------------------------------------
-@dataclass(frozen=True)
-class BacktestPlan:
-    """Every budget of a backtest; see the module docstring for the defaults."""
-
-    replay_seeds: int = 3
-    replay_max_picks: int | None = None
-    refit_every: int = 1
-    random_orders: int = 200
-    sim_functions: int = 8
-    sim_seeds: int = 2
-    sim_extra_candidates: int = 1000
-    sim_max_budget: int | None = None
-    n_init: int | None = None
-    batch_method: str = "kriging_believer"
-    simulate: bool = True
-    replay: bool = True
-
-    def to_dict(self) -> dict:
-        return dataclasses.asdict(self)
-
-
-def plan_for(quick: bool, **changes) -> BacktestPlan:
-    """The quick or full plan, with any field overridden by keyword."""
-    base = (BacktestPlan(replay_seeds=1, replay_max_picks=10, refit_every=5,
-                         random_orders=32, sim_functions=4, sim_seeds=2,
-                         sim_extra_candidates=200, sim_max_budget=12)
-            if quick else BacktestPlan(replay_seeds=2, replay_max_picks=24, refit_every=3,
-                                       sim_functions=4, sim_seeds=1,
-                                       sim_extra_candidates=500, sim_max_budget=24))
-    return dataclasses.replace(base, **changes)
-
-
-def _n_init(n: int, plan: BacktestPlan) -> int:
-    if plan.n_init is not None:
-        return int(plan.n_init)
-    return int(np.clip(n // 8, 2, 5))
-
-
-# -- the pool campaign every experiment runs ------------------------------------------
-def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, space,
-                frame: pd.DataFrame, y: np.ndarray, init: Sequence[int], n_picks: int,
-                *, batch: int = 1, method: str = "kriging_believer", refit_every: int = 1,
-                model_seed: int = 0, rng: np.random.Generator | int = 0,
-                quick: bool = False, cache: dict | None = None, failures=None
-                ) -> tuple[list[int], str | None]:
-    """Run one pool-based campaign and return the picked pool indices in pick order.
-
-    Parameters
-    ----------
-    make : callable
-        ``make(name, seed=..., quick=...)`` -> unfitted surrogate.
-    surrogate : str
-    setting : AcquisitionSetting
-    space : ParameterSpace
-        Encodes ``frame`` in the model's ``input_encoding``.
-    frame : DataFrame
-        The pool's settings, one row per pool member.
-    y : ndarray (len(frame),)
-        The pool's objective (minimization form).
-    init : sequence of int
-        Pool indices "run" before the first pick.
-    n_picks : int
-        Picks after the start (capped by the pool size).
-    batch, method, refit_every, model_seed, rng, quick
-        Batch size and method, picks between refits, model seed, acquisition RNG,
-        quick model budget.
-    cache : dict, optional
-        Fitted models keyed by the training rows (in order).  Runs of several settings
-        on the same pool with the same ``model_seed`` share it, so the fit on the common
-        start (and on any identical history) is done once; a fit is a deterministic
-        function of seed and data, so sharing changes no result.
-    failures : RunFailures, optional
-        Which pool members fail (:mod:`advisor.backtest._failures`): the model is then
-        fitted on the successful trials only and the acquisition weighted by the run's
-        own P(success).  None (default): every trial succeeds.
-
-    Returns
-    -------
-    picked : list of int
-        Distinct pool indices not in ``init``.
-    draws : str or None
-        ``"joint"`` / ``"independent"`` for Thompson sampling.
-    """
-    rng = np.random.default_rng(rng)
-    y = np.asarray(y, dtype=float)
-    used = [int(i) for i in init]
-    free = np.ones(len(y), dtype=bool)
-    free[used] = False
-    n_picks = min(int(n_picks), int(free.sum()))
-
-    def build():
-        return make(surrogate, seed=model_seed, quick=quick)
-
-    X = None
-    if setting.name != "random":
-        X = space.encode(frame, getattr(build(), "input_encoding", "onehot"))
-    model, draws, picked, step = None, None, [], 0
-    while len(picked) < n_picks:
-        q = min(batch, n_picks - len(picked))
-        cand = np.flatnonzero(free)
-        if setting.name == "random":
-            sel = rng.choice(len(cand), size=q, replace=False)
-        else:
-            rows = used if failures is None else failures.successful(used)
-            Xt, yt = X[rows], y[rows]
-            if model is None or step % refit_every == 0:
-                model = _fitted(build, Xt, yt, tuple(rows), cache)
-            if failures is not None:  # the run's own classifier of failure, every pick
-                failures.refit(space, frame, used)
-            pick = select_batch if failures is None else failures.selector(cand)
-            s = pick(model, setting, X[cand], incumbent(model, Xt), q, rng, method,
-                     y_scale=_scale(yt), X_train=Xt, y_train=yt,
-                     refit=lambda Xa, ya: build().fit(Xa, ya))
-            sel, draws = s.indices, draws or s.draws
-        idx = [int(i) for i in cand[sel]]
-        picked.extend(idx)
-        used.extend(idx)
-        free[idx] = False
-        step += 1
-    return picked, draws
-
-
-def _fitted(build, X, y, key, cache):
-    if cache is None:
-        return build().fit(X, y)
-    if key not in cache:
-        cache[key] = build().fit(X, y)
-    return cache[key]
-
-
-def _scale(y) -> float:
-    s = float(np.std(y))
-    return s if s > 1e-12 else 1.0
-
-
-def _pool_task(make, surrogate, setting_dicts, space, frame, y, init, n_picks, batch,
-               method, refit_every, model_seed, rng_seeds, quick, failures=None):
-    """Executor task: every setting of one surrogate on one pool and start.
-
-    Returns one ``{"picked", "draws", "error"}`` per setting; an exception is recorded,
-    never raised.  The settings share a model cache (see :func:`replay_pool`).  BLAS is
-    held to one thread: the matrices are small, and on a shared machine multi-threaded
-    BLAS made each GP fit 10-80 times slower (measured on 2 cores).
-    """
-    cache: dict = {}
-    out = []
-    with threadpool_limits(limits=1):
-        for setting_dict, rng_seed in zip(setting_dicts, rng_seeds):
-            try:
-                picked, draws = replay_pool(
-                    make, surrogate, AcquisitionSetting.from_dict(setting_dict), space,
-                    frame, y, init, n_picks, batch=batch, method=method,
-                    refit_every=refit_every, model_seed=model_seed, rng=rng_seed,
-                    quick=quick, cache=cache,
-                    failures=None if failures is None else copy.deepcopy(failures))
-                out.append({"picked": picked, "draws": draws, "error": None})
-            except Exception as exc:  # a failing surrogate is recorded, never fatal
-                out.append({"picked": None, "draws": None,
-                            "error": f"{type(exc).__name__}: {exc}"})
-    return out
-
-
-# -- curves and summaries -------------------------------------------------------------
-def _regret_curve(y_seq: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    best = np.minimum.accumulate(np.asarray(y_seq, dtype=float))
-    span = hi - lo
-    return (best - lo) / span if span > 0 else np.zeros_like(best)
-
-
-def _best_k_threshold(y: np.ndarray) -> float:
-    """The ceil(5 %)-th lowest value: reaching it means finding the pool's best 5 %."""
-    k = max(1, math.ceil(0.05 * len(y)))
-    return float(np.sort(y)[k - 1])
-
-
-def _trials_to(y_seq: np.ndarray, threshold: float) -> tuple[int, bool]:
-    hit = np.flatnonzero(np.minimum.accumulate(y_seq) <= threshold)
-    return (int(hit[0]) + 1, False) if hit.size else (len(y_seq) + 1, True)
-
-
-def _stats(values) -> dict:
-    v = np.asarray(values, dtype=float)
-    if v.size == 0:
-        return {"median": None, "q25": None, "q75": None, "mean": None, "sd": None, "n": 0}
-    q25, med, q75 = np.percentile(v, [25, 50, 75])
-    return {"median": float(med), "q25": float(q25), "q75": float(q75),
-            "mean": float(v.mean()), "sd": float(v.std(ddof=1)) if v.size > 1 else 0.0,
-            "n": int(v.size)}
-
-
-def _band(curves: list[np.ndarray]) -> dict:
-    """Pointwise median and quartiles; shorter curves are held at their last value."""
-    if not curves:
-        return {"median": [], "q25": [], "q75": []}
-    T = max(len(c) for c in curves)
-    M = np.array([np.concatenate([c, np.full(T - len(c), c[-1])]) for c in curves])
-    q25, med, q75 = np.percentile(M, [25, 50, 75], axis=0)
-    return {"median": [float(x) for x in med], "q25": [float(x) for x in q25],
-            "q75": [float(x) for x in q75]}
-
-
-def _summarize(runs: list[dict]) -> dict:
-    """runs: dicts with 'curve' (ndarray), 'auc', 'ttb', 'censored'."""
-    ttb = _stats([r["ttb"] for r in runs])
-    ttb["censored"] = int(sum(r["censored"] for r in runs))
-    return {"runs_count": len(runs), "auc": _stats([r["auc"] for r in runs]),
-            "trials_to_best5": ttb, "curve": _band([r["curve"] for r in runs])}
-
-
-def _score_sequence(y_seq, unit) -> dict:
-    curve = _regret_curve(y_seq, unit["lo"], unit["hi"])
-    ttb, cens = _trials_to(np.asarray(y_seq, float), unit["threshold"])
-    return {"curve": curve, "auc": float(curve.mean()), "ttb": ttb, "censored": cens}
-
-
-# -- pools ----------------------------------------------------------------------------
-def campaign_pools(trials) -> list[dict]:
-    """Each campaign's trials in logged order (order column, else file order).
-
-    Returns dicts with ``campaign``, ``rows`` (indices into ``trials.used`` in logged
-    order), ``y`` (minimization form, same order), ``ordered`` (whether an order column
-    set the order).
-    """
-    groups = trials.groups
-    order = trials.order_values
-    y_all = trials.y
-    pools = []
-    for name in pd.unique(groups):
-        rows = np.flatnonzero(groups == name)
-        ordered = order is not None
-        if ordered:
-            key = np.where(np.isfinite(order[rows]), order[rows], np.inf)
-            rows = rows[np.argsort(key, kind="stable")]
-        pools.append({"campaign": str(name), "rows": rows, "y": y_all[rows],
-                      "ordered": ordered})
-    return pools
-
-
-@dataclass
-class StandIns:
-    """Posterior draws used as simulated objectives.
-
-    Attributes
-    ----------
-    frame : DataFrame
-        The candidate set (logged settings first, then space samples).
-    values : ndarray (n_functions, len(frame))
-        Each row one drawn function on the candidate set (minimization form).
-    optimum : ndarray (n_functions,)
-        Each function's minimum over the candidate set (exact by construction).
-    argmin : ndarray of int (n_functions,)
-    n_logged : int
-        How many leading rows of ``frame`` are logged settings.
-    """
-
-    frame: pd.DataFrame
-    values: np.ndarray
-    optimum: np.ndarray
-    argmin: np.ndarray
-    n_logged: int
-    noise_std: float = 0.0
-
-
-def posterior_standins(trials, n_functions: int, n_extra: int, seed: int, *,
-                       make: Callable = make_surrogate, sampler: str = "gp",
-                       quick: bool = False) -> StandIns:
-    """Draw ``n_functions`` stand-in objectives from the ``sampler`` surrogate's posterior.
-
-    The sampler is fitted on every successful logged trial; functions are drawn jointly
-    with its ``sample_y`` on the logged settings plus ``n_extra`` uniform samples of
-    ``trials.space``.
-
-    Raises
-    ------
-    ValueError
-        When the sampler has no ``sample_y`` (independent draws would not be functions).
-    """
-    rng = np.random.default_rng(task_seed(seed, "standins"))
-    used = trials.used[trials.params].reset_index(drop=True)
-    # fresh space samples only: a set that is mostly logged settings lets a setting
-    # win by revisiting what the campaigns already found
-    frame = trials.space.sample(int(n_extra), rng).reset_index(drop=True)
-    model = make(sampler, seed=task_seed(seed, "standin-model"), quick=quick)
-    if not callable(getattr(model, "sample_y", None)):
-        raise ValueError(f"surrogate '{sampler}' has no sample_y; joint posterior draws "
-                         "are needed for simulated campaigns")
-    enc = getattr(model, "input_encoding", "onehot")
-    model.fit(trials.space.encode(used, enc), trials.y)
-    values = np.asarray(model.sample_y(trials.space.encode(frame, enc), n_functions, rng),
-                        dtype=float).reshape(n_functions, len(frame))
-    if not np.all(np.isfinite(values)):
-        raise ValueError(f"surrogate '{sampler}' returned non-finite posterior draws")
-    noise = getattr(model, "noise_std_", None)
-    noise = float(noise) if noise is not None and np.isfinite(noise) else 0.0
-    return StandIns(frame, values, values.min(axis=1), values.argmin(axis=1), 0, noise)
-
+           "posterior_standins", "StandIns", "campaign_pools", "DEFAULT_LABEL"]
 
 # -- orchestration --------------------------------------------------------------------
 def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSetting], *,
@@ -550,161 +269,12 @@ def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSettin
     out["per_surrogate"] = {name: choose_setting(out, name) for name in surrogates}
     for name in surrogates:
         out["per_surrogate"][name]["decision"] = _decide(out, name, seed)
+    if replay is not None:
+        replay["paired_test"] = {name: replay_paired_test(replay, name, DEFAULT_LABEL)
+                                 for name in surrogates}
     out["choice"] = _overall_choice(out)
     return out
 
-
-DEFAULT_LABEL = "EI xi=0.01"
-
-
-def _decide(bt: dict, surrogate: str, seed: int) -> dict:
-    """The paired test of every setting against the default for ``surrogate``.
-
-    Evidence = the simulated campaigns (runs paired by stand-in and start); the pool
-    replay decides only when no simulated campaign ran, and says so.  The power to
-    detect a true AUC improvement of 0.1 is measured by simulation (``paired_power``).
-    """
-    from ._decision import paired_decision, paired_power
-
-    part = None
-    for cand in ("simulated", "replay"):
-        sec = bt.get(cand)
-        if sec and not sec.get("error") and sec.get("results"):
-            part = cand
-            break
-    if part is None:
-        return {"experiment": None, "chosen": None, "beats_default": False,
-                "comparisons": [], "power_at_0.1": None}
-    values = {}
-    for r in bt[part]["results"]:
-        if r["surrogate"] != surrogate or r["error"] or r["acquisition"]["name"] == "random":
-            continue
-        values[r["label"]] = {(run["unit"], run["seed_index"]): run["auc"]
-                              for run in r["runs"]}
-    out = paired_decision(values, DEFAULT_LABEL)
-    out["experiment"] = part
-    out["metric"] = "normalized-regret AUC, paired by run"
-    base = values.get(DEFAULT_LABEL, {})
-    diffs = [np.array([v[k] - base[k] for k in sorted(set(v) & set(base))])
-             for lab, v in values.items() if lab != DEFAULT_LABEL]
-    rng = np.random.default_rng(task_seed(seed, "power", surrogate))
-    out["power_at_0.1"] = paired_power(diffs, max(1, len(diffs)), rng)
-    out["power_note"] = ("chance that a setting truly better than the default by 0.1 of "
-                         "normalized-regret AUC is found significant with this many runs "
-                         "(simulated from the observed paired spread, strictest Holm step)")
-    return out
-
-
-def _skipped_campaigns(pools, plan) -> list[dict]:
-    out = []
-    for p in pools:
-        n = len(p["rows"])
-        if n < _n_init(n, plan) + 2:
-            out.append({"campaign": p["campaign"], "trials": n, "used": False,
-                        "note": f"only {n} trials; at least {_n_init(n, plan) + 2} needed"})
-    return out
-
-
-def _replay_grid(trials, pools, surrogates, settings, seed, quick, batch, plan, make):
-    units, tasks, keys = {}, [], []
-    if not plan.replay:
-        return units, tasks, keys
-    used = trials.used
-    lines = used["_line"].to_numpy() if "_line" in used.columns else np.arange(len(used)) + 2
-    for p in pools:
-        n = len(p["rows"])
-        k = _n_init(n, plan)
-        if n < k + 2:
-            continue
-        picks = n - k if plan.replay_max_picks is None else min(n - k, plan.replay_max_picks)
-        frame = used.iloc[p["rows"]][trials.params].reset_index(drop=True)
-        y = p["y"]
-        inits = []
-        for s in range(plan.replay_seeds):
-            if p["ordered"]:
-                inits.append(list(range(k)))
-            else:
-                r = np.random.default_rng(task_seed(seed, "replay-init", p["campaign"], s))
-                inits.append(sorted(int(i) for i in r.choice(n, size=k, replace=False)))
-        unit = {"id": p["campaign"], "y": y, "lo": float(y.min()), "hi": float(y.max()),
-                "threshold": _best_k_threshold(y), "inits": inits, "length": k + picks,
-                "lines": lines[p["rows"]], "ordered": p["ordered"],
-                "info": {"campaign": p["campaign"], "trials": n, "used": True,
-                         "n_init": k, "picks": picks, "best": float(y.min()),
-                         "worst": float(y.max()), "threshold_best5": _best_k_threshold(y),
-                         "start": "first trials by order" if p["ordered"]
-                         else "random trials (no order column)"}}
-        units[p["campaign"]] = unit
-        for name in surrogates:
-            for s, init in enumerate(inits):
-                tasks.append((make, name, [st.to_dict() for st in settings], trials.space,
-                              frame, y, init, picks, batch, plan.batch_method,
-                              plan.refit_every,
-                              task_seed(seed, "model", name, "replay", p["campaign"], s),
-                              [task_seed(seed, "acq", name, st.label, "replay",
-                                         p["campaign"], s) for st in settings], quick))
-                keys.append((name, p["campaign"], s))
-    return units, tasks, keys
-
-
-def _simulated_grid(trials, surrogates, settings, seed, quick, budget, batch, plan, make,
-                    failures=None):
-    units, tasks, keys = {}, [], []
-    if not plan.simulate:
-        return None, units, tasks, keys
-    try:
-        with threadpool_limits(limits=1):
-            stand = posterior_standins(trials, plan.sim_functions,
-                                       plan.sim_extra_candidates, seed, make=make,
-                                       quick=quick)
-    except Exception as exc:  # no sampler: the replay still stands on its own
-        return ({"error": f"{type(exc).__name__}: {exc}", "functions": [], "results": []},
-                units, tasks, keys)
-    n_pool = len(stand.frame)
-    total = budget if plan.sim_max_budget is None else min(budget, plan.sim_max_budget)
-    total = min(total, n_pool)
-    k = _n_init(total, plan)
-    info = {"error": None, "budget": int(total), "n_init": int(k),
-            "candidates": int(n_pool), "logged_candidates": int(stand.n_logged),
-            "sampler": "gp", "noise_std": float(stand.noise_std),
-            "observations": "posterior draws plus normal noise at the sampler's fitted "
-                            "noise level; regret scored on the noise-free draw",
-            "functions": []}
-    region = None if failures is None else failures.region(stand.frame, len(stand.values),
-                                                           seed)
-    if region is not None:
-        info["failures"] = region.info()
-    for f in range(len(stand.values)):
-        v = stand.values[f] if region is None else region.scored_values(f, stand.values[f])
-        inits = []
-        for s in range(plan.sim_seeds):
-            r = np.random.default_rng(task_seed(seed, "sim-init", f, s))
-            starts = n_pool if region is None else region.allowed_starts(f)
-            inits.append(sorted(int(i) for i in r.choice(starts, size=k, replace=False)))
-        uid = f"f{f}"
-        units[uid] = {"id": uid, "y": v, "lo": float(v.min()), "hi": float(v.max()),
-                      "threshold": _best_k_threshold(v), "inits": inits, "length": total,
-                      "lines": None, "ordered": False,
-                      "failed": None if region is None else region.failed[f]}
-        info["functions"].append({"id": uid, "optimum": float(v.min()),
-                                  "worst": float(v.max()),
-                                  "argmin_is_logged": bool(stand.argmin[f] < stand.n_logged)})
-        # one noise draw per stand-in, shared by every setting (paired)
-        v_obs = stand.values[f] + stand.noise_std * np.random.default_rng(
-            task_seed(seed, "sim-noise", f)).standard_normal(len(v))
-        for name in surrogates:
-            for s, init in enumerate(inits):
-                tasks.append((make, name, [st.to_dict() for st in settings], trials.space,
-                              stand.frame, v_obs, init, total - k, batch,
-                              plan.batch_method,
-                              plan.refit_every,
-                              task_seed(seed, "model", name, "simulated", uid, s),
-                              [task_seed(seed, "acq", name, st.label, "simulated", uid, s)
-                               for st in settings], quick)
-                             + (() if region is None else (region.for_function(
-                                 f, task_seed(seed, "sim-fail-model", name, uid, s)),)))
-                keys.append((name, uid, s))
-    return info, units, tasks, keys
 
 
 def _collect(part, units, keys, outputs, surrogates, settings, failures, trials) -> dict:
@@ -754,7 +324,8 @@ def _collect(part, units, keys, outputs, surrogates, settings, failures, trials)
 
 
 def _baselines(part, units, seed, plan) -> dict:
-    """Random order (shuffles after the same start) and, for the replay, actual order."""
+    """Random order (shuffles after the same start); for the replay, actual order; for
+    the simulated campaigns, grid search (one design per start index, see ``_grid``)."""
     rand_runs, actual_runs, per_unit = [], [], {}
     for uid, unit in units.items():
         y, L = unit["y"], unit["length"]
@@ -772,122 +343,21 @@ def _baselines(part, units, seed, plan) -> dict:
             actual_runs.append(_score_sequence(y[:L], unit))
     out = {"random": dict(_summarize(rand_runs), label="random order",
                           per_unit_mean_auc=per_unit)}
+    grid_runs, grid_scored, grid_unit = [], [], {}
+    for uid, unit in units.items():
+        for s, rows in enumerate(unit.get("grid") or []):
+            sc = _score_sequence(unit["y"][rows], unit)
+            grid_scored.append(sc)
+            grid_runs.append({"unit": uid, "seed_index": s, "auc": sc["auc"],
+                              "trials_to_best5": sc["ttb"], "censored": sc["censored"]})
+            grid_unit.setdefault(uid, []).append(sc["auc"])
+    if grid_runs:
+        out["grid"] = dict(_summarize(grid_scored), label="grid search",
+                           per_unit_mean_auc={u: float(np.mean(a))
+                                              for u, a in grid_unit.items()},
+                           runs=grid_runs)
     if part == "replay":
         note = ("logged order" if all(u["ordered"] for u in units.values())
                 else "file row order where the log has no order column")
         out["actual"] = dict(_summarize(actual_runs), label="actual order", note=note)
     return out
-
-
-# -- choosing ---------------------------------------------------------------------------
-def _experiments(bt: dict) -> list[tuple[str, dict]]:
-    out = []
-    for part in ("replay", "simulated"):
-        sec = bt.get(part)
-        if sec and not sec.get("error") and sec.get("results"):
-            out.append((part, sec))
-    return out
-
-
-def _scores(bt: dict, surrogate: str | None = None) -> list[dict]:
-    """One row per (surrogate, setting) that ran without error in every experiment."""
-    parts = _experiments(bt)
-    rows = {}
-    for part, sec in parts:
-        for r in sec["results"]:
-            if surrogate is not None and r["surrogate"] != surrogate:
-                continue
-            key = (r["surrogate"], r["label"])
-            row = rows.setdefault(key, {"surrogate": r["surrogate"],
-                                        "acquisition": r["acquisition"],
-                                        "label": r["label"], "parts": {}, "error": None,
-                                        "beats": [0, 0]})
-            if r["error"] or r["auc"]["median"] is None:
-                row["error"] = r["error"] or "no runs"
-                continue
-            row["parts"][part] = {"auc": r["auc"]["median"],
-                                  "ttb": r["trials_to_best5"]["median"]}
-            ref = sec["random"]["per_unit_mean_auc"]
-            for run in r["runs"]:
-                row["beats"][0] += run["auc"] < ref[run["unit"]]
-                row["beats"][1] += 1
-    ok = []
-    for row in rows.values():
-        if row["error"] is None and len(row["parts"]) == len(parts):
-            row["score"] = float(np.mean([v["auc"] for v in row["parts"].values()]))
-            rp = row["parts"].get("replay")
-            row["tie"] = rp["ttb"] if rp else math.inf
-            ok.append(row)
-    ok.sort(key=lambda r: (round(r["score"] / _TIE), r["tie"]))
-    return ok
-
-
-def _random_score(bt: dict) -> float | None:
-    parts = _experiments(bt)
-    if not parts:
-        return None
-    return float(np.mean([sec["random"]["auc"]["median"] for _, sec in parts]))
-
-
-def _choice_from(ranked: list[dict], bt: dict, who: str) -> dict:
-    parts = [p for p, _ in _experiments(bt)]
-    if not ranked:
-        return {"surrogate": who, "acquisition": None, "label": None, "score": None,
-                "margin_over_runner_up": None, "margin_over_random": None,
-                "runner_up": None,
-                "reasons": [f"no setting ran without error for {who}" if parts
-                            else "no backtest experiment ran"]}
-    best = ranked[0]
-    runner = ranked[1] if len(ranked) > 1 else None
-    overall = len({r["surrogate"] for r in ranked}) > 1 or who != best["surrogate"]
-
-    def name(r):
-        return f"{r['surrogate']} + {r['label']}" if overall else r["label"]
-
-    rand = _random_score(bt)
-    m_run = None if runner is None else runner["score"] - best["score"]
-    m_rand = None if rand is None else rand - best["score"]
-    detail = ", ".join(f"{p} {best['parts'][p]['auc']:.3f}" for p in parts)
-    reasons = [f"{name(best)} has the lowest median normalized-regret AUC "
-               f"({detail}; score {best['score']:.3f}) among {len(ranked)} setting(s)"]
-    if runner is not None:
-        reasons.append(f"ahead of {name(runner)} by {m_run:.3f}")
-        if m_run < 0.01:
-            reasons.append("the margin over the runner-up is under 0.01: the two are "
-                           "practically tied on these logs")
-    if m_rand is not None:
-        verdict = "better" if m_rand > 0 else "no better"
-        reasons.append(f"{verdict} than random order (score {rand:.3f}, margin {m_rand:.3f})")
-    won, total = best["beats"]
-    if total:
-        reasons.append(f"beats the random-order mean on {won} of {total} runs")
-    return {"surrogate": best["surrogate"], "acquisition": best["acquisition"],
-            "label": best["label"], "score": best["score"],
-            "runner_up": None if runner is None else {"surrogate": runner["surrogate"],
-                                                      "acquisition": runner["acquisition"],
-                                                      "label": runner["label"],
-                                                      "score": runner["score"]},
-            "margin_over_runner_up": m_run, "margin_over_random": m_rand,
-            "runs_beating_random": int(won), "runs": int(total), "reasons": reasons}
-
-
-def choose_setting(backtest: dict, surrogate: str) -> dict:
-    """The best acquisition setting for ``surrogate`` in a :func:`run_backtest` dict.
-
-    Rule: lowest score = mean over the experiments that ran (replay, simulated) of the
-    median normalized-regret AUC; ties (within 1e-9) to the lower median replay
-    ``trials_to_best5``.  Settings that failed are not eligible.
-
-    Returns
-    -------
-    dict
-        ``surrogate``, ``acquisition`` ({"name", "params"} or None when nothing ran),
-        ``label``, ``score``, ``runner_up``, ``margin_over_runner_up``,
-        ``margin_over_random`` (random-order score minus the chosen score; > 0 means the
-        setting beats random), ``runs_beating_random``, ``runs``, ``reasons``.
-    """
-    return _choice_from(_scores(backtest, surrogate), backtest, surrogate)
-
-
-def _overall_choice(bt: dict) -> dict:
-    return _choice_from(_scores(bt), bt, "any surrogate")

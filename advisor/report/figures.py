@@ -414,18 +414,21 @@ def backtest_figure(backtest: Mapping | None, styles=None) -> Figure:
     is the median over runs and the band the interquartile range.  Each surrogate is
     drawn with the acquisition setting the backtest chose for it; random order (the
     shuffled pool after the same start) is the dotted black reference with a grey band,
-    and in the replay the campaign's actual order is dashed grey.
+    in the simulated campaigns grid search (a full-factorial design sized to the budget)
+    is dash-dotted black, and in the replay the campaign's actual order is dashed grey.
     """
     parts = [("replay", "replay on logged campaigns",
               "normalized best-so-far (0 = campaign best)"),
-             ("simulated", "simulated campaigns (GP posterior draws)",
+             ("simulated", "simulated campaigns",
               "normalized simple regret")]
     fig = _figure(_WIDTH, 2.7)
     axes = fig.subplots(1, 2, squeeze=False)[0]
     for ax, (key, title, ylabel) in zip(axes, parts):
         _axes_style(ax)
-        ax.set_title(title, fontsize=_TEXT + 0.5)
         sec = (backtest or {}).get(key)
+        if key == "simulated" and (sec or {}).get("sampler"):
+            title = f"simulated: {sec['sampler'].replace('+', ' + ')} stand-ins"
+        ax.set_title(title, fontsize=_TEXT + 0.5)
         if not sec or sec.get("error") or not sec.get("results"):
             why = "did not run" if not sec else (sec.get("error") or "no results")
             _empty(ax, f"{key}: {str(why)[:60]}", "trials (start included)", ylabel)
@@ -441,6 +444,7 @@ def backtest_figure(backtest: Mapping | None, styles=None) -> Figure:
                     label=f"{_short(r['surrogate'], 14)}, {r.get('label') or '?'}")
             drawn += 1
         for ref, kw in (("random", {"color": "#000000", "linestyle": ":"}),
+                        ("grid", {"color": "#000000", "linestyle": "-."}),
                         ("actual", {"color": "#777777", "linestyle": "--"})):
             arr = _curve_arrays((sec.get(ref) or {}).get("curve"))
             if arr is None:

@@ -133,9 +133,13 @@ class RandomForestSurrogate(EstimatorMixin):
         X = np.asarray(X, dtype=float)
         if X.ndim != 2:
             raise ValueError(f"X must be 2-D, got shape {X.shape}")
-        leaves = self.forest_.apply(X)                     # (k, T) leaf ids
-        means = np.array([m[leaves[:, t]] for t, m in enumerate(self.leaf_mean_)])
-        vars_ = np.array([v[leaves[:, t]] for t, v in enumerate(self.leaf_var_)])
+        # each tree's leaf ids directly: RandomForestRegressor.apply dispatches one joblib
+        # call per tree, whose overhead was 43% of a backtest that refits and predicts
+        # a forest at every step (cProfile); same float32 input, same leaves
+        X32 = np.ascontiguousarray(X, dtype=np.float32)
+        trees = self.forest_.estimators_
+        means = np.array([m[t.tree_.apply(X32)] for t, m in zip(trees, self.leaf_mean_)])
+        vars_ = np.array([v[t.tree_.apply(X32)] for t, v in zip(trees, self.leaf_var_)])
         return means, vars_
 
     def sample_y(self, X, n_samples: int, rng=None):

@@ -1,5 +1,6 @@
 """Section 4, the acquisition backtest: replay and simulated-campaign curves against
-random search, the reasons for the chosen setting, trials to the best 5%."""
+random and grid search, the reasons for the chosen setting, the replay's limits and its
+own paired test, trials to the best 5%."""
 
 from __future__ import annotations
 
@@ -35,19 +36,13 @@ def story(v: _View) -> list:
         return story
     choice = bt.get("choice") or {}
     cfg = bt.get("config") or {}
-    intro = (_p(
-        "Each surrogate and acquisition setting was replayed on the logged campaigns "
-        "(picking only trials that were actually run) and run on simulated campaigns "
-        "drawn from a Gaussian-process posterior of the log, from the same starting "
-        f"trials as random search (batch {cfg.get('batch', 1)}, budget "
-        f"{cfg.get('budget', 'n/a')}). Curves show normalized regret of the best so far: "
-        "0 is the pool's best value, 1 its worst; line = median, band = interquartile "
-        "range."))
+    intro = _p(_intro_text(bt, cfg))
     fig = FIGURES["backtest"]
     story.append(KeepTogether(_heading(3) + [intro, _image(fig.build(v)),
                                              _p(fig.caption_for(v), "caption")]))
     for r in choice.get("reasons") or []:
         story.append(_p("• " + _e(r), "small"))
+    story += _replay_limits(bt)
     story.append(Paragraph("Trials needed to reach the best 5%", _S["h2"]))
     story += _ttb_table(v, bt)
     fails = bt.get("failures") or []
@@ -91,8 +86,8 @@ def _ttb_table(v: _View, bt) -> list:
                         if (r.get("surrogate"), r.get("label")) == k), None)
             cells.append(_ttb_cell(res))
         rows.append(_cells(cells))
-    for ref in ("random", "actual"):
-        cells = ["<i>reference</i>", _e(ref + " order")]
+    for ref in ("random", "grid", "actual"):
+        cells = ["<i>reference</i>", _e("grid search" if ref == "grid" else ref + " order")]
         have = False
         for p in parts:
             res = (bt.get(p) or {}).get(ref)
@@ -106,3 +101,65 @@ def _ttb_table(v: _View, bt) -> list:
                "never reached the best 5% counts as its length + 1 ('never').", "small")]
 
 
+
+
+def _intro_text(bt, cfg) -> str:
+    sim = bt.get("simulated") or {}
+    st = sim.get("standins") or {}
+    classes = st.get("classes") or {}
+    if classes:
+        drawn = " and ".join(f"{n} × {(st.get('descriptions') or {}).get(c, c)}"
+                             for c, n in classes.items())
+        sims = (f"run on {sim.get('runs_per_setting', 'n/a')} simulated campaigns per "
+                f"setting (stand-in functions fitted to the whole log: {_e(drawn)}; "
+                "observed with the log's noise; candidates are fresh samples of the "
+                "parameter space)")
+    else:
+        sims = "run on simulated campaigns drawn from a model of the log"
+    updates = sim.get("updates")
+    grid = sim.get("grid_design")
+    text = ("The simulated campaigns are the evidence: each surrogate and acquisition "
+            f"setting was {sims}, from the same starting trials as random search (batch "
+            f"{cfg.get('batch', 1)}, budget {sim.get('budget', cfg.get('budget', 'n/a'))}"
+            ")" + (f"; {_e(updates)}" if updates else "") + ". ")
+    if grid:
+        text += (f"Grid search ran on the same functions: a full factorial with "
+                 f"{grid.get('levels_per_parameter')} levels per parameter at cell "
+                 f"midpoints over {grid.get('parameters')} parameters, a random subset "
+                 "of it when it exceeds the budget. ")
+    text += ("The pool replay on the logged campaigns is a secondary diagnostic. Curves "
+             "show normalized regret of the best so far: 0 is the pool's best value, 1 "
+             "its worst; line = median, band = interquartile range.")
+    return text
+
+
+def _replay_limits(bt) -> list:
+    """What the replay cannot show, and its own paired test against the default."""
+    rep = bt.get("replay") or {}
+    if not rep.get("results"):
+        return []
+    out = [Paragraph("What the pool replay can and cannot show", _S["h2"]),
+           _p("The replay may only pick trials that were actually run, and those were "
+              "chosen by the campaign's own optimizer, mostly near its optimum; a full "
+              "replay ends at the campaign's logged best whatever the order, so it shows "
+              "how fast a setting would have got there, never whether it would have found "
+              "better settings. Few campaigns make few paired runs. It therefore decides "
+              "nothing on its own: it counts only through its own paired test below, and "
+              "only when no simulated campaign ran.", "small")]
+    tests = rep.get("paired_test") or {}
+    for name, t in tests.items():
+        comps = t.get("comparisons") or []
+        if not comps:
+            continue
+        best = min(comps, key=lambda c: c.get("p_holm", 1.0))
+        floor = t.get("min_attainable_p")
+        verdict = ("a setting beats the default" if t.get("significant")
+                   else "no setting beats the default")
+        out.append(_p(
+            f"• {_name(name)}: replay paired test ({_e(t.get('test'))}, level "
+            f"{_num(t.get('alpha'))}, {t.get('pairs', 0)} pairs by campaign and start): "
+            f"{verdict}; smallest adjusted p = {_num(best.get('p_holm'))} "
+            f"({_e(best.get('label'))})"
+            + (f"; with this many pairs no p below {_num(floor)} is attainable"
+               if _finite(floor) else "") + ".", "small"))
+    return out
