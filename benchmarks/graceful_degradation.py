@@ -21,7 +21,7 @@ root = Path(__file__).resolve().parent.parent
 LOGS = {
  "moulding": dict(path="sample_logs/moulding_warpage.csv", objective="warpage_mm", campaign="lot", order="run"),
  "fermentation": dict(path="sample_logs/fermentation_yield.csv", objective="yield_g_per_l", direction="maximize", campaign="batch_series", order="run", status="outcome", success=["ok"]),
- "forecast": dict(path="sample_logs/forecast_tuning.csv", objective="val_mape", campaign="study", order="trial", space="sample_logs/forecast_tuning.space.toml"),
+ "forecast": dict(path="sample_logs/forecast_tuning.csv", objective="val_mape", campaign="search_round", order="trial", space="sample_logs/forecast_tuning.space.toml"),
 }
 models = sys.argv[1].split(",") if len(sys.argv) > 1 else ["gp","campaign_gp","warped_gp","forest","dngo","bnn","ensemble","neural_process","baseline"]
 which = sys.argv[2].split(",") if len(sys.argv) > 2 else ["logs","noise","h3"]

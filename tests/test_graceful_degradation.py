@@ -82,7 +82,7 @@ _LOGS = {
     "fermentation": dict(path="fermentation_yield.csv", objective="yield_g_per_l",
                          direction="maximize", campaign="batch_series", order="run",
                          status="outcome", success=["ok"]),
-    "forecast": dict(path="forecast_tuning.csv", objective="val_mape", campaign="study",
+    "forecast": dict(path="forecast_tuning.csv", objective="val_mape", campaign="search_round",
                      order="trial", space="forecast_tuning.space.toml"),
 }
 _BUILTIN_MODELS = ["gp", "campaign_gp", "warped_gp", "forest", "dngo", "bnn", "ensemble",

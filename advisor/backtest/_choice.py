@@ -39,17 +39,26 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
             continue
         values[r["label"]] = {(run["unit"], run["seed_index"]): run["auc"]
                               for run in r["runs"]}
-    out = paired_decision(values, DEFAULT_LABEL)
+    strata = None
+    if part == "simulated":  # the stand-in class of each run (GP draws, forest functions)
+        cls = {f["id"]: f.get("class") for f in bt[part].get("functions", [])}
+        strata = {k: cls.get(k[0]) for v in values.values() for k in v
+                  if cls.get(k[0]) is not None}
+    out = paired_decision(values, DEFAULT_LABEL, strata=strata)
     out["experiment"] = part
     out["metric"] = "normalized-regret AUC, paired by run"
     base = values.get(DEFAULT_LABEL, {})
     diffs = [np.array([v[k] - base[k] for k in sorted(set(v) & set(base))])
              for lab, v in values.items() if lab != DEFAULT_LABEL]
     rng = np.random.default_rng(task_seed(seed, "power", surrogate))
-    out["power_at_0.1"] = paired_power(diffs, max(1, len(diffs)), rng)
+    n_classes = len(set(strata.values())) if strata else 1
+    out["power_at_0.1"] = paired_power(diffs, max(1, len(diffs)), rng,
+                                       n_classes=n_classes)
     out["power_note"] = ("chance that a setting truly better than the default by 0.1 of "
                          "normalized-regret AUC is found significant with this many runs "
-                         "(simulated from the observed paired spread, strictest Holm step)")
+                         "(simulated from the observed paired spread, strictest Holm step"
+                         + (", found within every stand-in class" if n_classes > 1 else "")
+                         + ")")
     return out
 
 
