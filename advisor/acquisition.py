@@ -430,7 +430,8 @@ def select_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, b
                  q: int = 1, rng: np.random.Generator | None = None,
                  method: str = "kriging_believer", *, y_scale: float = 1.0,
                  X_train: np.ndarray | None = None, y_train: np.ndarray | None = None,
-                 refit: Callable[[np.ndarray, np.ndarray], object] | None = None
+                 refit: Callable[[np.ndarray, np.ndarray], object] | None = None,
+                 weight: Callable[[np.ndarray, float, np.ndarray], np.ndarray] | None = None
                  ) -> Selection:
     """Pick ``q`` distinct candidates.
 
@@ -451,6 +452,10 @@ def select_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, b
     method : {"kriging_believer", "constant_liar"}
     X_train, y_train, refit
         Needed when ``q > 1`` and the setting uses a model.
+    weight : callable, optional
+        ``weight(values, best, free)`` -> the acquisition values of the candidates
+        still free (``free`` a boolean mask), reweighted before each pick; used to weight
+        by a probability of success (:func:`advisor.batching.weight_by_success`).
 
     Returns
     -------
@@ -477,6 +482,10 @@ def select_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, b
     for k in range(q):
         values, kind = acquisition_values(model, setting, X_candidates, best, rng, y_scale)
         draws = draws or kind
+        if weight is not None:
+            w = np.full(n, -np.inf)
+            w[free] = weight(values[free], best, free)
+            values = w
         values = np.where(free, values, -np.inf)
         # ties broken at random, not by position: a model that cannot tell candidates
         # apart must behave like random search, not replay the candidates' order

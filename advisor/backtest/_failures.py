@@ -63,11 +63,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..acquisition import Selection, acquisition_values, select_batch
+from ..acquisition import Selection, select_batch
 from ..batching import weight_by_success
 from ..execution import task_seed
 from ..feasibility import make_classifier, unit_cube
-from ..surrogates.base import check_predictions
 
 __all__ = ["FailureModel", "FailureRegion", "RunFailures", "failure_region", "REFIT_RULE"]
 
@@ -113,36 +112,17 @@ class RunFailures:
                 rng: np.random.Generator, method: str, *, y_scale: float,
                 X_train: np.ndarray, y_train: np.ndarray, refit) -> Selection:
         """The acquisition weighted by the run's P(success); greedy fantasies for a
-        batch (kriging believer / constant liar, following the loop of
-        :func:`advisor.acquisition.select_batch`, which has no weighting hook).
+        batch (kriging believer / constant liar) through
+        :func:`advisor.acquisition.select_batch`'s ``weight`` hook.
         Indices returned are rows of ``Xc``."""
         if not self.weighted or self._p_success is None:
             return select_batch(model, setting, Xc, best, q, rng, method, y_scale=y_scale,
                                 X_train=X_train, y_train=y_train, refit=refit)
         p = self._p_success[cand]
-        free = np.ones(len(cand), dtype=bool)
-        chosen, draws = [], None
-        X_aug, y_aug = np.asarray(X_train, float), np.asarray(y_train, float).ravel()
-        lie = float(np.min(y_aug))
-        for k in range(q):
-            values, kind = acquisition_values(model, setting, Xc, best, rng, y_scale)
-            draws = draws or kind
-            # weighted over the candidates still free (the 0.5 cut applies among them)
-            w = np.full(len(Xc), -np.inf)
-            w[free] = weight_by_success(setting.name, values[free], p[free], best)
-            top = np.flatnonzero(w == w.max())
-            i = int(top[0] if len(top) == 1 else rng.choice(top))
-            chosen.append(i)
-            free[i] = False
-            if k == q - 1:
-                break
-            x = Xc[i:i + 1]
-            fantasy = (float(check_predictions(*model.predict(x), 1)[0][0])
-                       if method == "kriging_believer" else lie)
-            X_aug, y_aug = np.vstack([X_aug, x]), np.append(y_aug, fantasy)
-            best = min(best, fantasy)
-            model = refit(X_aug, y_aug)
-        return Selection(np.array(chosen, dtype=int), draws, method if q > 1 else None)
+        return select_batch(model, setting, Xc, best, q, rng, method, y_scale=y_scale,
+                            X_train=X_train, y_train=y_train, refit=refit,
+                            weight=lambda v, b, free: weight_by_success(
+                                setting.name, v, p[free], b))
 
 
 @dataclass
