@@ -81,6 +81,15 @@ def _one_sided_p(diff: np.ndarray, method: str = "auto") -> float:
                           method=method).pvalue)
 
 
+def _paired_row(runs: dict, base: dict, keep=None) -> dict:
+    """Runs, mean difference (runs - base) and one-sided p over the shared run keys
+    (those ``keep`` accepts, when given)."""
+    keys = sorted(k for k in set(runs) & set(base) if keep is None or keep(k))
+    d = np.array([runs[k] - base[k] for k in keys], float)
+    return {"runs": int(len(keys)), "mean_difference": float(d.mean()) if d.size else None,
+            "p_value": _one_sided_p(d)}
+
+
 def paired_decision(values: dict, default: str, alpha: float = ALPHA,
                     strata: dict | None = None) -> dict:
     """Compare every setting with ``default`` over paired runs.
@@ -114,11 +123,7 @@ def paired_decision(values: dict, default: str, alpha: float = ALPHA,
     for label, runs in values.items():
         if label == default:
             continue
-        keys = sorted(set(runs) & set(base))
-        d = np.array([runs[k] - base[k] for k in keys], float)
-        rows.append({"label": label, "runs": int(len(keys)),
-                     "mean_difference": float(d.mean()) if d.size else None,
-                     "p_value": _one_sided_p(d)})
+        rows.append({"label": label, **_paired_row(runs, base)})
     adj = holm_adjust([r["p_value"] for r in rows]) if rows else []
     for r, a in zip(rows, adj):
         r["p_holm"] = float(a)
@@ -126,14 +131,8 @@ def paired_decision(values: dict, default: str, alpha: float = ALPHA,
     classes = sorted(set((strata or {}).values()))
     if len(classes) >= 2 and rows:
         for c in classes:
-            sub_rows = []
-            for r in rows:
-                runs = values[r["label"]]
-                keys = sorted(k for k in set(runs) & set(base) if strata.get(k) == c)
-                d = np.array([runs[k] - base[k] for k in keys], float)
-                sub_rows.append({"runs": int(len(keys)),
-                                 "mean_difference": float(d.mean()) if d.size else None,
-                                 "p_value": _one_sided_p(d)})
+            sub_rows = [_paired_row(values[r["label"]], base,
+                                    keep=lambda k, c=c: strata.get(k) == c) for r in rows]
             sub_adj = holm_adjust([s["p_value"] for s in sub_rows])
             for r, s, a in zip(rows, sub_rows, sub_adj):
                 s["p_holm"] = float(a)
@@ -213,12 +212,7 @@ def paired_surrogate_test(values: dict, reference: str, candidates,
     for name in dict.fromkeys(candidates):
         if name == reference:
             continue
-        runs = values.get(name) or {}
-        keys = sorted(set(runs) & set(base))
-        d = np.array([runs[k] - base[k] for k in keys], float)
-        rows.append({"surrogate": name, "runs": int(len(keys)),
-                     "mean_difference": float(d.mean()) if d.size else None,
-                     "p_value": _one_sided_p(d)})
+        rows.append({"surrogate": name, **_paired_row(values.get(name) or {}, base)})
     adj = holm_adjust([r["p_value"] for r in rows]) if rows else []
     for r, a in zip(rows, adj):
         r["p_holm"] = float(a)
