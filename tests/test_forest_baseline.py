@@ -63,7 +63,7 @@ def _leaf_stats_from_training_data(model, X, y):
 def test_predict_equals_mixture_of_independently_recomputed_leaf_moments():
     X, y = _data(150, seed=2)
     Xt, _ = _data(25, seed=3)
-    model = RandomForestSurrogate(seed=4, n_estimators=20).fit(X, y)
+    model = RandomForestSurrogate(seed=4, n_estimators=20, oob_calibration=False).fit(X, y)
     stats = _leaf_stats_from_training_data(model, X, y)
     mus = np.empty((20, len(Xt)))
     s2s = np.empty((20, len(Xt)))
@@ -108,7 +108,8 @@ def test_forest_std_has_a_floor_on_constant_leaves():
     # 20 points per level, so every bootstrap sample has >= 3 on each side of the step
     X = np.arange(40, dtype=float)[:, None]
     y = np.repeat([1.0, 5.0], 20)
-    model = RandomForestSurrogate(seed=0, n_estimators=10, var_floor=1e-6).fit(X, y)
+    model = RandomForestSurrogate(seed=0, n_estimators=10, var_floor=1e-6,
+                                  oob_calibration=False).fit(X, y)
     _, std = model.predict(np.array([[0.0], [39.0]]))
     # far from the split every leaf is pure; the floor is 1e-6 * var(y), var(y) = 4
     np.testing.assert_allclose(std, np.sqrt(1e-6 * 4.0), rtol=1e-6)
@@ -136,7 +137,7 @@ def test_baseline_constant_targets_keep_positive_std():
 # -- Thompson draws ------------------------------------------------------------------
 def test_forest_thompson_draw_is_one_whole_tree():
     X, y = _data(40, seed=8)
-    model = RandomForestSurrogate(seed=0, n_estimators=7).fit(X, y)
+    model = RandomForestSurrogate(seed=0, n_estimators=7, oob_calibration=False).fit(X, y)
     Xq = X[:9] + 0.01
     draws = model.sample_y(Xq, 7, np.random.default_rng(1))
     # reference: scikit-learn's own per-tree predictions; each draw is exactly one tree,
@@ -149,6 +150,37 @@ def test_forest_thompson_draw_is_one_whole_tree():
     np.testing.assert_allclose(draws.mean(0), model.forest_.predict(Xq), rtol=1e-10)
     assert model.sample_y(Xq, 15, 2).shape == (15, 9)
     assert model.info_["thompson_draws"].startswith("joint")
+    # with the out-of-bag calibration a draw is the tree shrunk toward mean(y) by the
+    # fitted factor, so the draws still average to predict's mean
+    cal = RandomForestSurrogate(seed=0, n_estimators=7).fit(X, y)
+    np.testing.assert_allclose(cal.sample_y(Xq, 7, np.random.default_rng(1)).mean(0),
+                               cal.predict(Xq)[0], rtol=1e-10)
+
+
+# -- out-of-bag calibration ------------------------------------------------------------
+def test_oob_mean_is_scikit_learns_oob_prediction():
+    from sklearn.ensemble import RandomForestRegressor
+    X, y = _data(60, seed=11)
+    model = RandomForestSurrogate(seed=5, n_estimators=40).fit(X, y)
+    ref = RandomForestRegressor(n_estimators=40, min_samples_leaf=3, max_features=1.0,
+                                random_state=5, oob_score=True).fit(X, y)
+    mean, var, count = model.oob_moments(X)
+    assert np.all(count > 0) and np.all(var > 0)
+    # same trees (same seed), and scikit-learn's own out-of-bag average
+    np.testing.assert_allclose(mean, ref.oob_prediction_, rtol=1e-10)
+
+
+def test_oob_calibration_falls_back_on_noise_and_keeps_signal():
+    # pure noise: the out-of-bag slope of y on the forest's prediction is about 0 (clipped
+    # at 0 here), so the forest predicts the training mean; with a strong signal the
+    # slope stays near 1.  Seeded; the thresholds are our choice.
+    rng = np.random.default_rng(3)
+    X = rng.uniform(size=(40, 6))
+    noise = RandomForestSurrogate(seed=0, quick=True).fit(X, rng.standard_normal(40))
+    assert noise.shrink_ < 0.2
+    Xs, ys = _data(80, seed=12)
+    signal = RandomForestSurrogate(seed=0, quick=True).fit(Xs, ys)
+    assert signal.shrink_ > 0.9 and signal.variance_scale_ >= 1.0
 
 
 def test_forest_thompson_is_labelled_joint_by_the_acquisition():

@@ -42,6 +42,9 @@ __all__ = ["RandomForestSurrogate", "total_variance_moments"]
 
 #: Trees per forest (thorough, quick).
 N_TREES = {False: 300, True: 100}
+#: Out-of-bag calibration: prior degrees of freedom of the variance scale (as for the
+#: network surrogates), fewest out-of-bag trees for a row to count, fewest such rows.
+NU0, OOB_MIN_TREES, OOB_MIN_ROWS = 10.0, 5, 10
 
 
 def total_variance_moments(leaf_means, leaf_vars):
@@ -102,13 +105,14 @@ class RandomForestSurrogate(EstimatorMixin):
     thompson_draws = "joint: one tree (a bootstrap refit) per draw"
 
     def __init__(self, seed=0, quick=False, *, n_estimators=None, min_samples_leaf=3,
-                 max_features=1.0, var_floor=1e-6):
+                 max_features=1.0, var_floor=1e-6, oob_calibration=True):
         self.seed = seed
         self.quick = quick
         self.n_estimators = n_estimators
         self.min_samples_leaf = min_samples_leaf
         self.max_features = max_features
         self.var_floor = var_floor
+        self.oob_calibration = oob_calibration
 
     def fit(self, X, y):
         X, y = check_fit_inputs(X, y)
@@ -123,10 +127,54 @@ class RandomForestSurrogate(EstimatorMixin):
         self.leaf_mean_ = [t.tree_.value[:, 0, 0].copy() for t in self.forest_.estimators_]
         self.leaf_var_ = [t.tree_.impurity.copy() for t in self.forest_.estimators_]
         self._floor = self.var_floor * max(float(y.var()), 1e-300)
+        self.y_mean_ = float(y.mean())
+        self.shrink_, self.variance_scale_ = 1.0, 1.0
+        if self.oob_calibration:
+            self._calibrate_oob(X, y)
         self.info_ = {"n_trees": n_trees, "min_samples_leaf": self.min_samples_leaf,
                       "variance": "law of total variance over trees",
                       "thompson_draws": self.thompson_draws}
+        if self.oob_calibration:
+            self.info_.update(shrink=self.shrink_, variance_scale=self.variance_scale_)
         return self
+
+    def oob_moments(self, X):
+        """Out-of-bag mixture moments at the training rows ``X`` (the rows the forest was
+        fitted on, in the same order): for each row the law-of-total-variance mean and
+        variance over the trees whose bootstrap sample left it out, and their count.
+        Three (n,) arrays; mean and variance are 0 where the count is 0."""
+        X32 = np.ascontiguousarray(X, dtype=np.float32)
+        n = len(X32)
+        m1, m2, w = np.zeros(n), np.zeros(n), np.zeros(n)
+        for t, sample, mu, s2 in zip(self.forest_.estimators_, self.forest_.estimators_samples_,
+                                     self.leaf_mean_, self.leaf_var_):
+            oob = np.ones(n, dtype=bool)
+            oob[sample] = False
+            leaf = t.tree_.apply(X32[oob])
+            m1[oob] += mu[leaf]
+            m2[oob] += s2[leaf] + mu[leaf] ** 2
+            w[oob] += 1
+        c = np.maximum(w, 1)
+        mean = m1 / c
+        return mean, np.maximum(m2 / c - mean ** 2, 0.0), w
+
+    def _calibrate_oob(self, X, y):
+        """Shrinkage of the mean toward the training mean and a variance scale, both
+        fitted on the out-of-bag predictions (see the module docstring)."""
+        mean, var, w = self.oob_moments(X)
+        ok = w >= OOB_MIN_TREES
+        if ok.sum() < OOB_MIN_ROWS:
+            return
+        var = var[ok] + self._floor
+        dm, dy = mean[ok] - self.y_mean_, y[ok] - self.y_mean_
+        # weighted least squares slope of y on the OOB prediction through the training
+        # mean, kept in [0, 1]: 1 keeps the forest's mean, 0 falls back to the training mean
+        den = float(np.sum(dm * dm / var))
+        c = float(np.clip(np.sum(dm * dy / var) / den, 0.0, 1.0)) if den > 0 else 0.0
+        z2 = (dy - c * dm) ** 2 / var
+        s2 = (NU0 + float(z2.sum())) / (NU0 + len(z2))
+        self.shrink_ = c
+        self.variance_scale_ = float(np.sqrt(max(s2, 1.0)))
 
     def leaf_moments(self, X):
         """Per-tree leaf means and variances at ``X``: two (T, k) arrays."""
@@ -151,17 +199,20 @@ class RandomForestSurrogate(EstimatorMixin):
         a draw is a whole function, evaluated jointly at every point of ``X`` — the
         bootstrap reading of Thompson sampling ("bootstrap Thompson", a refit on a
         resample; Eckles & Kaptein 2014, from memory) — not independent noise per
-        point.  Shape ``(n_samples, len(X))``.
+        point.  With the out-of-bag shrinkage ``c`` (see ``fit``) a draw is
+        ``mean(y) + c (tree - mean(y))``, so the draws average to ``predict``'s mean.
+        Shape ``(n_samples, len(X))``.
         """
         rng = np.random.default_rng(rng)
         means, _ = self.leaf_moments(X)
         t = means.shape[0]
         order = np.concatenate([rng.permutation(t) for _ in range(-(-int(n_samples) // t))])
-        return means[order[:int(n_samples)]]
+        return self.y_mean_ + self.shrink_ * (means[order[:int(n_samples)]] - self.y_mean_)
 
     def predict(self, X):
         mean, var = total_variance_moments(*self.leaf_moments(X))
-        return mean, np.sqrt(var + self._floor)
+        mean = self.y_mean_ + self.shrink_ * (mean - self.y_mean_)
+        return mean, self.variance_scale_ * np.sqrt(var + self._floor)
 
     @property
     def feature_importances_(self):
