@@ -77,6 +77,52 @@ def test_gradient_matches_finite_differences():
     np.testing.assert_allclose(grad, fd, rtol=1e-4, atol=1e-4)
 
 
+def test_log_posterior_adds_the_lognormal_prior_and_its_gradient():
+    from scipy import stats
+
+    from advisor.surrogates.gp import length_scale_prior, negative_log_posterior
+    X, y = _data(40, d=3, seed=4)
+    a, b = np.log([0.5, 1.7, 3.0, 0.8, 0.05]), np.log([2.0, 0.3, 9.0, 1.2, 0.2])
+    mu, var = length_scale_prior(3)
+    # location sqrt(2) + log(d)/2 on the unit cube (Hvarfner, Hellsten & Nardi 2024, from
+    # memory) plus log(sqrt(12)): the sd of a uniform column on [0, 1] is 1/sqrt(12)
+    assert mu == pytest.approx(np.sqrt(2) + 0.5 * np.log(3) + 0.5 * np.log(12))
+    assert var == 3.0
+
+    def prior(t):    # log-density of log l_k under N(mu, 3), scipy's closed form
+        return stats.norm.logpdf(t[:3], mu, np.sqrt(var)).sum()
+
+    # the posterior differs from the likelihood by the log prior (up to a constant)
+    diff = [negative_log_posterior(t, X, y)[0] - negative_log_marginal_likelihood(t, X, y)[0]
+            for t in (a, b)]
+    assert diff[0] - diff[1] == pytest.approx(-(prior(a) - prior(b)), rel=1e-10)
+    _, grad = negative_log_posterior(a, X, y)
+    fd = approx_fprime(a, lambda t: negative_log_posterior(t, X, y)[0], 1e-6)
+    np.testing.assert_allclose(grad, fd, rtol=1e-4, atol=1e-4)
+
+
+def test_hyperprior_off_is_type_ii_maximum_likelihood():
+    # hyperprior=False: the fitted point is a stationary point of the likelihood alone,
+    # with the prior it is one of the posterior (projected gradient ~ 0 where not at a bound)
+    from advisor.surrogates.gp import BOUNDS, negative_log_posterior
+    X, y = _data(50, d=2, seed=6)
+    for prior, fun in [(False, negative_log_marginal_likelihood), (True, negative_log_posterior)]:
+        m = MaternGP(seed=0, quick=True, hyperprior=prior).fit(X, y)
+        Xs, ys = (X - m.x_mean_) / m.x_scale_, (y - m.y_mean_) / m.y_scale_
+        _, g = fun(m.log_params_, Xs, ys)
+        lo = np.log([BOUNDS["length_scale"][0]] * 2 + [BOUNDS["signal_variance"][0],
+                                                      BOUNDS["noise_variance"][0]])
+        hi = np.log([BOUNDS["length_scale"][1]] * 2 + [BOUNDS["signal_variance"][1],
+                                                      BOUNDS["noise_variance"][1]])
+        free = (m.log_params_ > lo + 1e-6) & (m.log_params_ < hi - 1e-6)
+        # L-BFGS-B's default tolerances stop at |grad| ~ 1e-3..1e-2 here (common practice)
+        assert np.all(np.abs(g[free]) < 0.05), (prior, g)
+    # and the prior matters here: at the MAP point the likelihood alone is not stationary
+    _, g_ml = negative_log_marginal_likelihood(m.log_params_, Xs, ys)
+    assert np.abs(g_ml).max() > 0.2
+    assert m.with_fixed_hyperparameters().hyperprior is True
+
+
 # -- fixed hyperparameters ----------------------------------------------------------
 @pytest.mark.parametrize("d", [1, 3])
 def test_fixed_hyperparameters_match_algorithm_2_1_and_sklearn(d):
@@ -231,12 +277,13 @@ def test_fitc_approximation_close_to_exact_and_bounded_memory(monkeypatch):
     nll_exact = -norm.logpdf(yt, *exact.predict(Xt)).mean()
     shapes = []
     real = gp_module.matern52
+    from advisor.surrogates.gp import _model    # the module whose matern52 the fits call
 
     def spy(A, B, *args):
         shapes.append((len(A), len(B)))
         return real(A, B, *args)
 
-    monkeypatch.setattr(gp_module, "matern52", spy)
+    monkeypatch.setattr(_model, "matern52", spy)
     approx = MaternGP(seed=0, quick=True, max_exact=300).fit(X, y)
     nll_approx = -norm.logpdf(yt, *approx.predict(Xt)).mean()
     assert approx.info_["approximation"].startswith("FITC, m=300")

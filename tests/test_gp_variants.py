@@ -30,6 +30,22 @@ def test_campaign_gp_recovers_between_campaign_sd_and_noise():
     assert plain.noise_std_ > 2 * m.noise_std_   # the offsets inflate the plain GP's noise
 
 
+def test_campaign_likelihood_gradient_matches_finite_differences():
+    from scipy.optimize import approx_fprime
+
+    from advisor.surrogates.gp_campaign import _nlml, _same
+    rng = np.random.default_rng(0)
+    X, y = rng.normal(size=(30, 3)), rng.normal(size=30)
+    S = _same(np.repeat([0, 1, 2], 10), np.repeat([0, 1, 2], 10))
+    theta = 0.5 * rng.normal(size=3 + 3 + 3)
+    for slopes in (False, True):
+        t = theta if slopes else theta[:6]
+        _, grad = _nlml(t, X, y, S, 1e-8, slopes, True)
+        fd = approx_fprime(t, lambda u: _nlml(u, X, y, S, 1e-8, slopes, True)[0], 1e-6)
+        # forward differences with step 1e-6: ~1e-5 relative (common practice)
+        np.testing.assert_allclose(grad, fd, rtol=1e-4, atol=1e-4)
+
+
 def test_campaign_gp_new_campaign_variance_and_forward_learning():
     X, y, g, offs = _offset_log(1, n_camp=5, per=20)
     m = CampaignGP(seed=0, quick=True).fit(X, y, groups=g)
