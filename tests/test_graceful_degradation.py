@@ -41,6 +41,25 @@ def test_pure_noise_nll_is_near_the_baseline(name):
     assert _nll(model, Xt, yt) < base + 0.05
 
 
+@pytest.mark.slow
+@pytest.mark.parametrize("name, n_logs, bound", [("gp", 20, 4), ("forest", 10, 3)])
+def test_pure_noise_fallback_rate_over_seeds(name, n_logs, bound):
+    # Seeded pure-noise logs as above: how many give a held-out NLL more than 0.05 above
+    # the baseline's.  Measured: gp 1 of 20, forest 2 of 10 (3 of 20) (binomial
+    # Monte-Carlo se of a share p from m logs: sqrt(p (1 - p) / m), 0.05 and 0.13);
+    # before the length-scale prior and the out-of-bag calibration 19 of 20 and 17 of 20.
+    # Bounds (our choice): about 2 se above the measured shares.  The forest runs 10 logs
+    # to keep the test to a few seconds.
+    worse = 0
+    for s in range(n_logs):
+        rng = np.random.default_rng(100 + s)
+        X, y = rng.uniform(size=(40, 6)), rng.standard_normal(40)
+        Xt, yt = rng.uniform(size=(300, 6)), rng.standard_normal(300)
+        base = _nll(make_surrogate("baseline").fit(X, y), Xt, yt)
+        worse += _nll(make_surrogate(name, seed=0, quick=True).fit(X, y), Xt, yt) > base + 0.05
+    assert worse <= bound
+
+
 # Hartmann-3 (Dixon & Szegő 1978, "The global optimization problem: an introduction",
 # Towards Global Optimisation 2; constants as tabulated there) on the first 3 of 16
 # inputs: 13 inputs do not matter.

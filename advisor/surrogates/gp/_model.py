@@ -12,8 +12,8 @@ from scipy.optimize import minimize
 from threadpoolctl import ThreadpoolController
 
 from ..base import ScaledSurrogate, check_fit_inputs
-from ._kernel import (_LOG_2PI, BOUNDS, _cholesky_with_jitter, _unpack, matern52,
-                      negative_log_marginal_likelihood, negative_log_posterior)
+from ._kernel import (_LOG_2PI, BOUNDS, _cholesky_with_jitter, _unpack, length_scale_prior,
+                      matern52, negative_log_marginal_likelihood, negative_log_posterior)
 
 #: Exact GP up to this many training points (thorough, quick); see module docstring.
 MAX_EXACT = {False: 1500, True: 800}
@@ -170,8 +170,15 @@ class MaternGP(ScaledSurrogate):
                                        self.noise_variance / self.y_scale_ ** 2]]))
 
     def _starts(self, d, rng, n_restarts):
-        """The fixed start (given values, or unit length scales, unit signal, 0.1 noise)
-        and random log-uniform starts in a central box (our choices)."""
+        """The fixed start (given values, or unit length scales, unit signal, 0.1 noise),
+        random log-uniform starts in a central box and, under the prior, the fixed start
+        with every length scale at the prior's median (our choices).
+
+        The last one: on 20 seeded 40-row pure-noise logs in 6 inputs the other starts
+        ended in a local optimum with one or two short length scales in 5 cases (held-out
+        NLL up to 0.66 above the baseline's); from the prior's median all 5 reached the
+        better optimum (long length scales, NLL within 0.002 of the baseline's).
+        """
         given = self._given_log_params(d)
         first = given if given is not None else np.log(np.r_[np.ones(d), 1.0, 0.1])
         starts = [first]
@@ -179,6 +186,10 @@ class MaternGP(ScaledSurrogate):
             starts.append(np.log(np.r_[np.exp(rng.uniform(np.log(0.2), np.log(20.0), d)),
                                        np.exp(rng.uniform(np.log(0.3), np.log(3.0))),
                                        np.exp(rng.uniform(np.log(1e-4), np.log(0.5)))]))
+        if self.hyperprior:
+            mid = np.array(first, dtype=float)
+            mid[:d] = length_scale_prior(d)[0]
+            starts.append(mid)
         return starts
 
     def _run_lbfgs(self, x0, Xs, ys, bounds):
