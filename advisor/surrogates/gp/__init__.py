@@ -16,7 +16,8 @@ likelihood [RW2006, Eq. 5.8] plus a log-normal log-prior on the length scales
     log p(y | X) = -1/2 y^T K_y^{-1} y - 1/2 log|K_y| - n/2 log(2 pi),   K_y = K + sigma_n^2 I
 
 and its gradient [RW2006, Eq. 5.9] ``1/2 tr((alpha alpha^T - K_y^{-1}) dK_y/dtheta)``,
-by L-BFGS-B in log-parameter space from one fixed and several random starts.
+by L-BFGS-B in log-parameter space from one fixed and several random starts (under the
+prior the last random start is replaced by one at the prior's median length scale).
 Prediction follows [RW2006, Algorithm 2.1].
 
 Why hand-written rather than scikit-learn's ``GaussianProcessRegressor``: the
