@@ -265,11 +265,21 @@ def _wilcoxon_less(a, b):
     return float(stats.wilcoxon(d, alternative="less").pvalue)
 
 
+def _function_tests(r_rec, norm, seed) -> dict:
+    """One function's tests over its replicates (same tests as the pooled ones)."""
+    d = r_rec - np.asarray(norm[DEFAULT.label])
+    return {"recommended_minus_default": float(d.mean()),
+            "upper_95": _bootstrap_upper(d, seed),
+            "p_vs_random": _wilcoxon_less(r_rec, norm["random search"]),
+            "p_vs_grid": _wilcoxon_less(r_rec, norm["grid search"]),
+            "p_recommended_beats_default": _wilcoxon_less(r_rec, norm[DEFAULT.label])}
+
+
 CONFIGS = {
     "small": dict(functions=["branin", "hartmann3"], reps=6, budget=24, n_campaigns=3,
                   past_trials=12, grid="quick", surrogates=["gp", "forest"],
                   batch_function="hartmann3", batch_reps=8),
-    "full": dict(functions=list(FUNCTIONS), reps=5, budget=30, n_campaigns=4,
+    "full": dict(functions=list(FUNCTIONS), reps=10, budget=30, n_campaigns=4,
                  past_trials=20, grid="full", surrogates=None,
                  batch_function="hartmann3", batch_reps=8),
 }
@@ -308,9 +318,14 @@ def run(size="small", seed=0, progress=print) -> dict:
             means = {k: float(np.mean(v)) for k, v in norm.items()}
             grid_means = {k: means[k] for k in arms}
             best_label = min(grid_means, key=grid_means.get)
+            r_rec = np.asarray(norm[rec.label])
             per_function[name] = {
                 "recommended": rec.label, "recommended_surrogate": a.recommendation["surrogate"],
                 "acquisition_evidence": a.recommendation.get("acquisition_evidence"),
+                "acquisition_source": a.recommendation.get("acquisition_source"),
+                "acquisition_statement": a.recommendation.get("acquisition_statement"),
+                "acquisition_test": a.recommendation.get("acquisition_test"),
+                "tests": _function_tests(r_rec, norm, task_seed(seed, "boot", name)),
                 "best_setting": best_label, "mean_normalized_regret": means,
                 "normalized_regret": norm, "noise_sd": sd,
                 "random_search_mean_regret": scale}
@@ -341,24 +356,16 @@ def run(size="small", seed=0, progress=print) -> dict:
         }
         for k in ("beats_random", "beats_grid"):
             tests[k]["passed"] = tests[k]["p"] < 0.05
-        # batch campaign
-        bf, reps_b = cfg["batch_function"], cfg["batch_reps"]
-        sd = _noise_sd(bf)
-        seq = [_run(bf, DEFAULT, r, cfg["budget"], sd, seed) for r in range(reps_b)]
-        bat = [_run(bf, DEFAULT, r, cfg["budget"], sd, seed, q=4) for r in range(reps_b)]
-        rnd = [_run(bf, None, r, cfg["budget"], sd, seed) for r in range(reps_b)]
-        s = float(np.mean(rnd)) or 1.0
-        seq, bat, rnd = (np.asarray(v) / s for v in (seq, bat, rnd))
-        ub = _bootstrap_upper(bat - seq, task_seed(seed, "boot", "batch"))
-        p_rand = _wilcoxon_less(bat, rnd)
-        batch = {"function": bf, "q": 4, "method": "local_penalization", "setting": DEFAULT.label,
-                 "mean_normalized_regret": {"batch": float(bat.mean()), "sequential":
-                                            float(seq.mean()), "random search": float(rnd.mean())},
-                 "beats_random": {"p": p_rand, "passed": p_rand < 0.05,
-                                  "test": "one-sided Wilcoxon signed-rank", "level": 0.05},
-                 "within_sequential": {"margin": BATCH_MARGIN, "upper_95": ub,
-                                       "passed": ub < BATCH_MARGIN,
-                                       "test": "one-sided 95% paired bootstrap of the mean"}}
+        non_default = {n: {"recommended": v["recommended"],
+                           "recommended_minus_default": v["tests"]["recommended_minus_default"],
+                           "won": v["tests"]["recommended_minus_default"] < 0,
+                           "p_recommended_beats_default":
+                               v["tests"]["p_recommended_beats_default"]}
+                       for n, v in per_function.items() if v["recommended"] != DEFAULT.label}
+        tests["non_default_recommended"] = {"count": len(non_default),
+                                            "functions": len(per_function),
+                                            "which": non_default}
+        batch = batch_campaign(size, seed)
     return {"size": size, "seed": seed, "config": cfg, "settings": [s.label for s in settings],
             "functions": per_function,
             "table": [dict(zip(["function", "recommended", "recommended_regret",
@@ -368,13 +375,46 @@ def run(size="small", seed=0, progress=print) -> dict:
             "elapsed_seconds": time.perf_counter() - t0}
 
 
+def batch_campaign(size="small", seed=0) -> dict:
+    """The q = 4 batch campaign against sequential EI and random search (paired)."""
+    cfg = CONFIGS[size]
+    bf, reps_b = cfg["batch_function"], cfg["batch_reps"]
+    sd = _noise_sd(bf)
+    with threadpool_limits(1):
+        seq = [_run(bf, DEFAULT, r, cfg["budget"], sd, seed) for r in range(reps_b)]
+        bat = [_run(bf, DEFAULT, r, cfg["budget"], sd, seed, q=4) for r in range(reps_b)]
+        rnd = [_run(bf, None, r, cfg["budget"], sd, seed) for r in range(reps_b)]
+    s = float(np.mean(rnd)) or 1.0
+    seq, bat, rnd = (np.asarray(v) / s for v in (seq, bat, rnd))
+    ub = _bootstrap_upper(bat - seq, task_seed(seed, "boot", "batch"))
+    p_rand = _wilcoxon_less(bat, rnd)
+    return {"function": bf, "q": 4, "method": "local_penalization", "setting": DEFAULT.label,
+            "replicates": reps_b, "budget": cfg["budget"],
+            "mean_normalized_regret": {"batch": float(bat.mean()), "sequential":
+                                       float(seq.mean()), "random search": float(rnd.mean())},
+            "normalized_regret": {"batch": list(bat), "sequential": list(seq),
+                                  "random search": list(rnd)},
+            "beats_random": {"p": p_rand, "passed": p_rand < 0.05,
+                             "test": "one-sided Wilcoxon signed-rank", "level": 0.05},
+            "within_sequential": {"margin": BATCH_MARGIN, "upper_95": ub,
+                                  "passed": ub < BATCH_MARGIN,
+                                  "test": "one-sided 95% paired bootstrap of the mean"}}
+
+
 def markdown(res) -> str:
-    out = ["| function | recommended | regret | default EI xi=0.01 | best setting | regret "
-           "| random | grid |", "| --- | --- | --- | --- | --- | --- | --- | --- |"]
+    out = ["| function | recommended | regret | default EI xi=0.01 | rec. - default (95% upper) "
+           "| best setting | regret | random | grid | p vs random | p vs grid |",
+           "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |"]
     for r in res["table"]:
+        t = res["functions"][r["function"]].get("tests", {})
+        diff = (f"{t['recommended_minus_default']:+.2f} ({t['upper_95']:+.2f})"
+                if t else "")
+        pr = f"{t['p_vs_random']:.2g}" if t else ""
+        pg = f"{t['p_vs_grid']:.2g}" if t else ""
         out.append(f"| {r['function']} | {r['recommended']} | {r['recommended_regret']:.2f} | "
-                   f"{r['default_regret']:.2f} | {r['best_setting']} | {r['best_regret']:.2f} | "
-                   f"{r['random_regret']:.2f} | {r['grid_regret']:.2f} |")
+                   f"{r['default_regret']:.2f} | {diff} | {r['best_setting']} | "
+                   f"{r['best_regret']:.2f} | {r['random_regret']:.2f} | "
+                   f"{r['grid_regret']:.2f} | {pr} | {pg} |")
     return "\n".join(out)
 
 
@@ -383,8 +423,17 @@ def main(argv=None):
     ap.add_argument("--small", action="store_true")
     ap.add_argument("--seed", type=int, default=0)
     ap.add_argument("--out", default=str(ROOT / "benchmarks" / "results" / "next_campaign.json"))
+    ap.add_argument("--batch-only", action="store_true",
+                    help="rerun only the batch campaign and replace it in --out")
     args = ap.parse_args(argv)
-    res = run("small" if args.small else "full", seed=args.seed)
+    size = "small" if args.small else "full"
+    if args.batch_only:
+        res = json.loads(Path(args.out).read_text())
+        res["batch"] = batch_campaign(size, seed=args.seed)
+        print(json.dumps(res["batch"], indent=1, default=float))
+        Path(args.out).write_text(json.dumps(res, indent=1, default=float))
+        return
+    res = run(size, seed=args.seed)
     print(markdown(res))
     print(json.dumps({"tests": res["tests"], "batch": res["batch"]}, indent=1))
     Path(args.out).write_text(json.dumps(res, indent=1, default=float))
