@@ -149,8 +149,8 @@ def lipschitz_estimate(U: np.ndarray, mean: np.ndarray, rng: np.random.Generator
     ``|mean_a - mean_b| / ||U_a - U_b||`` between rows (a subset of at most 400 drawn
     with ``rng``), a finite-difference stand-in for the gradient norm of [GDHL2016]_
     Sec. 3.3: one constant for every direction.  :func:`build_batch` now uses the
-    per-axis :func:`axis_slopes` instead (module docstring); kept for comparisons.  Pairs closer than 1e-9
-    are skipped; the result is at least ``floor``."""
+    per-axis :func:`axis_slopes` instead (module docstring); kept for comparisons.
+    Pairs closer than 1e-9 are skipped; the result is at least ``floor``."""
     U = np.asarray(U, dtype=float)
     mean = np.asarray(mean, dtype=float)
     if len(U) > _LIPSCHITZ_POINTS:
