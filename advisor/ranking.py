@@ -269,16 +269,28 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
             score_scale = scoring_scales.get(n, s) if use_scale[n] else 1.0
             crps_pts[n] = point_scores(p, score_scale)["crps"]
             cover_ok = raw_ok or scaled_ok
+            # Too wide, with no scale that brings it inside the band (a non-Gaussian
+            # predictive gets none): wider than needed, which CRPS and NLL already
+            # charge for; only too narrow (overconfident) fails the guard rail.  On the
+            # real-log benchmark the upper bound demoted the CRPS leader in 3 of 15
+            # cases, each time the truly better model (README, "Real-log benchmark").
+            wide = bool(not cover_ok and min(cov_raw, cov_s) > COVERAGE_GUARD[1])
+            cover_ok = cover_ok or wide
             rho_lo = _spearman_lower(p["mean"], p["y"], p["fold"], idx)
             order_ok = rho_lo > 0
             rows[n] = {"surrogate": n, "status": "ok", "crps": float(crps_pts[n].mean()),
                        "coverage_90": cov_s if use_scale[n] else cov_raw,
                        "variance_scale": s if use_scale[n] else 1.0,
                        "guard_coverage": bool(cover_ok), "guard_order": bool(order_ok),
+                       "coverage_wide": wide,
                        "spearman_lower": rho_lo, "fit_seconds": float(fit_seconds.get(n, np.nan))}
             if use_scale[n]:
                 reasons[n].append(f"scores with its standard deviation scaled by {s:.2f} "
                                   f"(90% coverage {cov_raw:.2f} as fitted, {cov_s:.2f} scaled)")
+            if wide:
+                reasons[n].append(f"90% interval covers {cov_raw:.0%} of held-out trials, "
+                                  f"above {COVERAGE_GUARD[1]:.0%}: wider than needed (its "
+                                  "CRPS and NLL already pay for that; not a guard failure)")
             if not cover_ok:
                 reasons[n].append(f"90% interval covers {cov_raw:.0%} of held-out trials, "
                                   f"outside {COVERAGE_GUARD[0]:.0%}-{COVERAGE_GUARD[1]:.0%} "
