@@ -7,7 +7,10 @@ The rule, in order (also in the README):
    error as the reason.
 2. **Guard rails.**  A working model must (a) cover: its held-out 90% interval covers
    between 80% and 97% of the held-out trials, either as it is or after the variance
-   scale fitted on the other folds (the recommendation then says to scale); and (b)
+   scale fitted on the other folds (the recommendation then says to scale); a model
+   that covers more than 97% with no scale bringing it inside (a non-Gaussian
+   predictive gets none) is only too wide, which its CRPS already charges for: it is
+   noted (``coverage_wide``) and passes, only too narrow fails; and (b)
    order: the Spearman correlation of its predicted means with the held-out objective,
    taken within each fold and averaged, is positive with a 95% bootstrap interval above
    zero.  Models that fail a guard rail
