@@ -46,7 +46,7 @@ truth seeds of the paired difference (pick minus that best); over cases, the sta
 error of the mean over the cases.  Rules are compared with the paired difference to
 the rule in force, ``guard:coverage_low_only``, over cases (mean and standard error).
 
-    python benchmarks/real_logs_regret.py                  # 20 trials, replicates 0-2, 3 truth seeds
+    python benchmarks/real_logs_regret.py                  # 20 trials, replicates 0-4, 3 truth seeds
     python benchmarks/real_logs_regret.py --resume         # reuse the cases already computed
     python benchmarks/real_logs_regret.py --table-only     # re-tabulate the stored cases
 
@@ -346,7 +346,7 @@ def main(argv=None):
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--trials", type=int, default=20, help="trials per campaign")
-    ap.add_argument("--replicates", default="0,1,2", help="log replicates (comma-separated)")
+    ap.add_argument("--replicates", default="0,1,2,3,4", help="log replicates (comma-separated)")
     ap.add_argument("--truth-seeds", type=int, default=3)
     ap.add_argument("--problems", default=None)
     ap.add_argument("--resume", action="store_true", help="keep the stored cases")
