@@ -7,7 +7,10 @@ The rule, in order (also in the README):
    error as the reason.
 2. **Guard rails.**  A working model must (a) cover: its held-out 90% interval covers
    between 80% and 97% of the held-out trials, either as it is or after the variance
-   scale fitted on the other folds (the recommendation then says to scale); and (b)
+   scale fitted on the other folds (the recommendation then says to scale); a model
+   that covers more than 97% with no scale bringing it inside (a non-Gaussian
+   predictive gets none) is only too wide, which its CRPS already charges for: it is
+   noted (``coverage_wide``) and passes, only too narrow fails; and (b)
    order: the Spearman correlation of its predicted means with the held-out objective,
    taken within each fold and averaged, is positive with a 95% bootstrap interval above
    zero.  Models that fail a guard rail
@@ -269,16 +272,28 @@ def rank_surrogates(preds: dict[str, dict], failures: dict[str, list[str]],
             score_scale = scoring_scales.get(n, s) if use_scale[n] else 1.0
             crps_pts[n] = point_scores(p, score_scale)["crps"]
             cover_ok = raw_ok or scaled_ok
+            # Too wide, with no scale that brings it inside the band (a non-Gaussian
+            # predictive gets none): wider than needed, which CRPS and NLL already
+            # charge for; only too narrow (overconfident) fails the guard rail.  On the
+            # real-log benchmark the upper bound demoted the CRPS leader in 3 of 15
+            # cases, each time the truly better model (README, "Real-log benchmark").
+            wide = bool(not cover_ok and min(cov_raw, cov_s) > COVERAGE_GUARD[1])
+            cover_ok = cover_ok or wide
             rho_lo = _spearman_lower(p["mean"], p["y"], p["fold"], idx)
             order_ok = rho_lo > 0
             rows[n] = {"surrogate": n, "status": "ok", "crps": float(crps_pts[n].mean()),
                        "coverage_90": cov_s if use_scale[n] else cov_raw,
                        "variance_scale": s if use_scale[n] else 1.0,
                        "guard_coverage": bool(cover_ok), "guard_order": bool(order_ok),
+                       "coverage_wide": wide,
                        "spearman_lower": rho_lo, "fit_seconds": float(fit_seconds.get(n, np.nan))}
             if use_scale[n]:
                 reasons[n].append(f"scores with its standard deviation scaled by {s:.2f} "
                                   f"(90% coverage {cov_raw:.2f} as fitted, {cov_s:.2f} scaled)")
+            if wide:
+                reasons[n].append(f"90% interval covers {cov_raw:.0%} of held-out trials, "
+                                  f"above {COVERAGE_GUARD[1]:.0%}: wider than needed (its "
+                                  "CRPS and NLL already pay for that; not a guard failure)")
             if not cover_ok:
                 reasons[n].append(f"90% interval covers {cov_raw:.0%} of held-out trials, "
                                   f"outside {COVERAGE_GUARD[0]:.0%}-{COVERAGE_GUARD[1]:.0%} "

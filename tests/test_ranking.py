@@ -192,3 +192,33 @@ def test_own_point_scores_replace_the_gaussian_forms_and_get_no_scale():
     assert row["crps"] == pytest.approx(2 * crps.mean())
     assert row["variance_scale"] == 1.0
     assert row["coverage_90"] == pytest.approx(np.mean(np.abs(z) <= stats.norm.ppf(0.95)))
+
+
+def test_too_wide_passes_the_coverage_guard_too_narrow_fails():
+    # Truth: y = mu + N(0, 0.3^2).  "wide" predicts N(mu, 1) with its own per-point
+    # scores (a non-Gaussian-style predictive: no variance scale can narrow it); its 90%
+    # interval covers P(|N(0, 0.3^2)| <= 1.645) = 1 - 4e-8 of the points (closed form,
+    # scipy), above the 97% bound: too wide, which CRPS charges for, so it passes
+    # (noted).  "narrow" predicts N(mu, 0.05^2): coverage 2 Phi(1.645 * 0.05 / 0.3) - 1
+    # = 0.22, overconfident, and with no scale to rescue it fails the guard rail.
+    from scipy import stats
+    rng = np.random.default_rng(5)
+    y, mu, fold = _preds(rng)
+    wide = _entry(y, mu, 1.0, fold)
+    z = y - mu
+    wide.update(nll_pt=-stats.norm.logpdf(z, scale=1.0),
+                crps_pt=z * (2 * stats.norm.cdf(z) - 1) + 2 * stats.norm.pdf(z)
+                - 1 / np.sqrt(np.pi),
+                pit=stats.norm.cdf(z, scale=1.0))
+    preds = {"truth": _entry(y, mu, 0.3, fold), "wide": wide,
+             "narrow": _entry(y, mu, 0.05, fold)}
+    assert 2 * stats.norm.cdf(1.645 * 0.05 / 0.3) - 1 < 0.80
+    r = rank_surrogates(preds, {}, {"truth": 1.0, "wide": 1.0, "narrow": 1.0})
+    t = r.table.set_index("surrogate")
+    assert t.loc["wide", "coverage_90"] > 0.97
+    assert t.loc["wide", "guard_coverage"] and t.loc["wide", "coverage_wide"]
+    assert not t.loc["narrow", "guard_coverage"] and not t.loc["narrow", "coverage_wide"]
+    assert t.loc["truth", "guard_coverage"] and not t.loc["truth", "coverage_wide"]
+    assert any("wider than needed" in s for s in r.reasons["wide"])
+    names = r.table["surrogate"].tolist()
+    assert names[0] == "truth" and names.index("wide") < names.index("narrow")

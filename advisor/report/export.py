@@ -76,7 +76,8 @@ def assessment_to_dict(a) -> dict:
                                                          "top_quarter_spearman",
                                                          "top_hit_rate")
                 for k in (f"{m}_fold_sd", f"{m}_folds")}
-            entry["guards"] = {"coverage": row["guard_coverage"], "order": row["guard_order"]}
+            entry["guards"] = {"coverage": row["guard_coverage"], "order": row["guard_order"],
+                               "coverage_wide": bool(row.get("coverage_wide", False))}
             entry["variance_scale"] = row["variance_scale"]
             rc = a.recalibration.get(n)
             if rc:

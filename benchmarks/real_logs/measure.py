@@ -102,10 +102,36 @@ def _f(v):
     return None if v is None or not np.isfinite(v) else float(v)
 
 
+def _mean_truth(by_seed: list[dict], names) -> dict:
+    """Each candidate's truth averaged over model seeds, with the standard error of its
+    NLL over the seeds (``nll_se``; None with one seed)."""
+    out = {}
+    for n in names:
+        runs = [t[n] for t in by_seed]
+        if any(r.get("nll") is None for r in runs):
+            out[n] = dict(runs[0])
+            continue
+        entry = {}
+        for key in runs[0]:
+            vals = [r.get(key) for r in runs]
+            if all(isinstance(v, (int, float)) for v in vals):
+                entry[key] = float(np.mean(vals))
+        nll = np.array([r["nll"] for r in runs])
+        entry["nll_se"] = float(nll.std(ddof=1) / np.sqrt(len(nll))) if len(nll) > 1 else None
+        entry["nll_by_seed"] = [float(v) for v in nll]
+        out[n] = entry
+    return out
+
+
 def measure_problem(name: str, n_per_campaign: int, seed: int = 0,
                     schemes=("campaign", "kfold"), names=None,
-                    within_campaign: bool = False) -> dict:
-    """Everything the tables need for one problem, one size, one seed."""
+                    within_campaign: bool = False, truth_seeds: int = 1) -> dict:
+    """Everything the tables need for one problem, one size, one seed.
+
+    ``truth_seeds`` > 1 fits every candidate for the truth with that many model seeds
+    (``seed``, ``seed + 1``, ...) and keeps the mean over them (the pick is refitted by
+    the user with an arbitrary seed, so its expected score is the honest truth); the
+    summary's regret then carries the standard error over the seeds."""
     problem = PROBLEMS[name]
     names = list(names) if names else advisor.surrogate_names()
     past = campaign_log(name, PAST, n_per_campaign)
@@ -113,7 +139,8 @@ def measure_problem(name: str, n_per_campaign: int, seed: int = 0,
     sign = 1.0 if problem.direction == "minimize" else -1.0
     with tempfile.TemporaryDirectory() as tmp:
         trials = _load(problem, past, Path(tmp))
-        truth = _truth(trials, new, names, seed, sign)
+        truth = _mean_truth([_truth(trials, new, names, seed + k, sign)
+                             for k in range(truth_seeds)], names)
         within = None
         if within_campaign:
             # In use, the surrogate is refitted once the new campaign has begun: fit on
@@ -129,6 +156,7 @@ def measure_problem(name: str, n_per_campaign: int, seed: int = 0,
             if s not in cv:
                 cv[s] = _cv(trials, names, seed, s)["scores"]
     out = {"problem": name, "description": problem.description, "seed": seed,
+           "truth_seeds": truth_seeds,
            "n_per_campaign": n_per_campaign, "n_past": len(past), "n_new": len(new),
            "y_std": float(np.std(past[problem.objective].to_numpy(float))),
            "candidates": names, "truth": truth, "truth_within": within, "cv": cv,
@@ -161,6 +189,14 @@ def summarize(m: dict) -> dict:
             true_rank = stats.rankdata([vals[n] for n in common])
             out[f"spearman_{key}"] = float(stats.spearmanr(adv_rank, true_rank)[0])
             out[f"kendall_{key}"] = float(stats.kendalltau(adv_rank, true_rank)[0])
+    # Monte-Carlo error of the NLL regret over the truth's model seeds: the standard
+    # error of the paired per-seed difference (pick minus the best on average).
+    bpick, bbest = truth.get(pick, {}), truth[out["true_best_nll"]]
+    if bpick.get("nll_by_seed") and len(bpick["nll_by_seed"]) > 1:
+        d = np.array(bpick["nll_by_seed"]) - np.array(bbest["nll_by_seed"])
+        out["regret_nll_se"] = float(d.std(ddof=1) / np.sqrt(len(d)))
+    else:
+        out["regret_nll_se"] = None
     # CRPS regret in units of the past objective's spread, comparable across problems.
     out["regret_crps_rel"] = out["regret_crps"] / max(m.get("y_std", 1.0), 1e-12)
     return out
