@@ -89,18 +89,7 @@ _BUILTIN_MODELS = ["gp", "campaign_gp", "warped_gp", "forest", "dngo", "bnn", "e
                    "neural_process"]
 #: (log, scheme, model) cases where the model still loses to the baseline: known gaps,
 #: kept visible.  Empty when every built-in model wins everywhere.
-_KNOWN_LOSSES = {
-    # lot L04 left out (last fold): the models' error is smaller than the baseline's
-    # (root-mean-square 0.107 vs 0.135 mm) but L04 lies 0.04 mm off and their sd
-    # (0.060-0.067 mm, after the new-campaign scales 1.3-1.6 fitted on 18 rows) is too
-    # small: mean z^2 2.8-3.1.  Over all four lots both beat the baseline (README).
-    ("moulding", "campaign", "dngo"),
-    ("moulding", "campaign", "neural_process"),
-    # two training campaigns only; the third (BS3) lies 1.8 g/L off the neural process's
-    # mixture over the two, 2.7 g/L root-mean-square error against the new-campaign
-    # scale's 1.35 sd (measured): NLL 3.41 vs the baseline's 3.10
-    ("fermentation", "campaign", "neural_process"),
-}
+_KNOWN_LOSSES: set = set()
 _FOLD_CACHE = {}
 
 
