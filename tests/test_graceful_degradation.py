@@ -26,14 +26,19 @@ def _nll(model, X, y):
 @pytest.mark.slow
 @pytest.mark.parametrize("name", [
     "dngo", "ensemble", "neural_process",
+    # the BNN (1.486) since its weight precision is Gibbs-sampled only once the sampler's
+    # preconditioner is frozen: before, the scale-adapting burn-in ran hot (the weights
+    # at 2.2-2.4 times their prior variance, measured with the precision held at 1) and
+    # the precision draws followed it down, 3 -> 0.09 (quick, NLL 1.731) and to ~0 over
+    # the thorough chain (NLL 3.49)
+    "bnn",
     # known gaps (issue 14), measured NLL against the baseline's 1.471 + 0.05:
-    # the short SGHMC chain fits noise on 40 rows (1.731; its mean varies with sd 0.68
-    # where y is pure noise of sd 0.89; split-R-hat 1.7); type-II maximum likelihood
-    # picks short length scales and little noise on 40 rows of noise (gp 3.54, warped
-    # gp 3.06, campaign gp 1.573); the forest's leaves of 3 rows (1.551)
+    # type-II maximum likelihood picks short length scales and little noise on 40 rows of
+    # noise (gp 3.54, warped gp 3.06, campaign gp 1.573); the forest's leaves of 3 rows
+    # (1.551)
     *[pytest.param(n, marks=pytest.mark.xfail(strict=True, reason="overconfident on "
                                               "pure noise"))
-      for n in ("bnn", "gp", "warped_gp", "campaign_gp", "forest")],
+      for n in ("gp", "warped_gp", "campaign_gp", "forest")],
 ])
 def test_pure_noise_nll_is_near_the_baseline(name):
     rng = np.random.default_rng(3)

@@ -518,4 +518,4 @@ class NewCampaignMixin:
     def _campaign_info(self):
         """Facts for ``info_``: the offset sd in the objective's units."""
         return {"between_campaign_sd": float(math.sqrt(self.campaign_offset_var_)
-                                             * self.y_scale_)}
+                                             * getattr(self, "y_scale_", 1.0))}
