@@ -680,4 +680,12 @@ def _merge_info(res: list[dict]) -> dict:
         seen = list(dict.fromkeys(str(r["info"][key]) for r in res if key in r["info"]))
         if len(seen) > 1:
             out[key] = " / ".join(seen) + " (by fold)"
+    # a sampler's convergence diagnostic counts over all folds, not the largest alone
+    flags = [bool(r["info"]["converged"]) for r in res if "converged" in r["info"]]
+    if flags:
+        out["converged_folds"] = f"{sum(flags)} of {len(flags)}"
+        if not all(flags) and out.get("converged", True):
+            out["converged"] = False
+            out["warning"] = (f"sampler not converged on {len(flags) - sum(flags)} of "
+                              f"{len(flags)} folds; treat the uncertainty with care")
     return out

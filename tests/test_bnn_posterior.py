@@ -67,3 +67,17 @@ def test_split_rhat_is_one_for_iid_draws_and_large_for_a_drifting_chain():
     assert np.all(split_rhat(iid) < 1.05)
     drift = iid + np.linspace(0, 5, 400)[:, None]
     assert np.all(split_rhat(drift) > 1.5)
+
+
+def test_the_reported_convergence_counts_every_fold():
+    # The JSON/PDF show the largest fold's facts; a chain that did not converge on an
+    # earlier fold must still be reported (issue 14: "or the model reports that it did not").
+    from advisor.assessment import _merge_info
+    res = [{"info": {"n_train": 10, "converged": False, "split_rhat_max": 2.4}},
+           {"info": {"n_train": 30, "converged": True, "split_rhat_max": 1.05}},
+           {"info": {"n_train": 20, "converged": True, "split_rhat_max": 1.08}}]
+    out = _merge_info(res)
+    assert out["converged_folds"] == "2 of 3"
+    assert out["converged"] is False and "1 of 3 folds" in out["warning"]
+    assert _merge_info(res[1:])["converged"] is True
+    assert "warning" not in _merge_info(res[1:])

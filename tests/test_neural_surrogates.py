@@ -8,7 +8,8 @@ from scipy import optimize, stats
 
 from advisor.surrogates import make_surrogate
 from advisor.surrogates.dngo import blr_log_evidence, blr_posterior
-from advisor.surrogates.nets import THREADS_ENV, mixture_moments, torch_threads
+from advisor.surrogates.nets import (CAMPAIGN_PRIOR_DF, THREADS_ENV, campaign_offset_variance,
+                                    mixture_moments, torch_threads)
 
 MODELS = ["dngo", "bnn", "ensemble", "neural_process"]
 
@@ -212,6 +213,54 @@ def test_neural_process_records_mode_and_conditions_on_campaign():
     unseen = meta.predict(Xq, groups=["new"] * 6)
     allrows = meta.predict(Xq)
     np.testing.assert_allclose(unseen[0], allrows[0], rtol=1e-12)
+
+
+def test_campaign_offset_variance_recovers_the_between_campaign_variance():
+    # One-way random-effects model (Gelman et al. 2013, BDA3 Sec. 5.4): 300 campaigns of
+    # 8 rows, offsets N(0, 0.6^2), noise N(0, 1), the model's sd the true within sd 1.
+    # The method-of-moments estimate has sd about sqrt(2/300) (0.36 + 1/8) = 0.04
+    # (chi-square variance); tolerance 0.12, 3 sd.  Seeded.
+    rng = np.random.default_rng(0)
+    g = np.repeat(np.arange(300), 8)
+    y = rng.normal(0, 0.6, 300)[g] + rng.standard_normal(len(g))
+    est = campaign_offset_variance(y, np.zeros_like(y), np.ones_like(y), g)
+    assert est == pytest.approx(0.36, abs=0.12)
+
+
+def test_campaign_offset_variance_is_the_posterior_mean_with_few_campaigns():
+    # Two or three campaigns whose mean residuals are exactly +-r over n rows: the
+    # posterior of s_b^2 is scaled-inverse-chi-square(nu_n, s_n^2) = InvGamma(nu_n / 2,
+    # nu_n s_n^2 / 2) (BDA3 Sec. 2.6 and Appendix A) with nu_n = nu_0 + k,
+    # nu_n s_n^2 = nu_0 v + sum_c (r^2 - v / n); its mean from scipy.stats.invgamma.
+    v, n, r = 0.25, 10, 0.7
+    for k in (2, 3):
+        resid = np.concatenate([np.r_[r + 0.1, r - 0.1].repeat(n // 2) * (-1) ** c
+                                for c in range(k)])
+        g = np.repeat(np.arange(k), n)
+        nu_n = CAMPAIGN_PRIOR_DF + k
+        ss = CAMPAIGN_PRIOR_DF * v + k * (r ** 2 - v / n)
+        want = stats.invgamma(nu_n / 2, scale=ss / 2).mean()
+        got = campaign_offset_variance(resid, np.zeros(k * n), np.full(k * n, np.sqrt(v)), g)
+        assert got == pytest.approx(want, rel=1e-9)
+    # one campaign: no between-campaign spread can be seen
+    assert campaign_offset_variance(resid[:n], np.zeros(n), np.ones(n), g[:n]) == 0.0
+
+
+@pytest.mark.parametrize("name", ["dngo", "ensemble", "neural_process"])
+def test_a_new_campaign_gets_the_between_campaign_variance(name):
+    rng = np.random.default_rng(10)
+    X, y, g = _campaigns(rng, [0.8, -0.8, 0.0, 0.4], 30)
+    model = make_surrogate(name, seed=0, quick=True).fit(X, y, groups=g)
+    Xq = np.linspace(-2, 2, 6)[:, None]
+    mean_new, sd_new = model.predict(Xq, groups=["new"] * 6)
+    mean_old, sd_old = model.predict(Xq, groups=["c0"] * 6)
+    assert model.info_["between_campaign_sd"] > 0
+    if name != "neural_process":   # the NP conditions a known campaign on its own rows
+        np.testing.assert_allclose(mean_new, mean_old)
+        # variances add: sd_new^2 = sd_old^2 + s_b^2 (the random-effect term)
+        np.testing.assert_allclose(sd_new ** 2 - sd_old ** 2,
+                                   model.info_["between_campaign_sd"] ** 2, rtol=1e-6)
+    assert np.all(sd_new > sd_old)
 
 
 def test_torch_threads_reads_environment(monkeypatch):

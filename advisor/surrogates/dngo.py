@@ -15,8 +15,8 @@ import numpy as np
 import torch
 
 from .base import ScaledSurrogate
-from .nets import (LatentSamplerMixin, StackedMLP, as_tensor, epochs_for, holdout_split,
-                   inner_variance_scale, torch_generator, torch_threads,
+from .nets import (LatentSamplerMixin, NewCampaignMixin, StackedMLP, as_tensor, epochs_for,
+                   campaign_offset_variance, holdout_split, inner_variance_scale, torch_generator, torch_threads,
                    train_with_early_stopping)
 
 __all__ = ["DNGO", "blr_log_evidence", "blr_posterior"]
@@ -124,7 +124,7 @@ _PRESETS = {
 }
 
 
-class DNGO(LatentSamplerMixin, ScaledSurrogate):
+class DNGO(NewCampaignMixin, LatentSamplerMixin, ScaledSurrogate):
     """Deep networks for global optimization (adaptive basis regression).
 
     A tanh network ``d -> 50 -> 50 -> 50 -> 1`` is fitted by mean squared error with
@@ -178,12 +178,15 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
     the posterior of ``w``, so ``sample_y`` agrees) is multiplied by it;
     ``info_["variance_scale"]``.  The held-out slice also chose the early-stopping
     epoch, so the scale is slightly optimistic (our choice, to keep one split).
-    With campaign labels (``fit(X, y, groups)``, two or more campaigns) a second scale
-    is fitted for campaigns absent from training: the held-out rows of each campaign
-    predicted by the regression on the *other* campaigns' training rows
-    (``info_["variance_scale_new_campaign"]``, never below the row scale), applied by
-    ``predict(X, groups)`` to rows of unseen campaigns — a lot-to-lot shift the network
-    cannot see is then in the variance.  Without labels, one scale for all rows.
+    With campaign labels (``fit(X, y, groups)``, two or more campaigns) rows of a
+    campaign absent from training get a between-campaign offset variance added
+    (:func:`advisor.surrogates.nets.campaign_offset_variance`, a random campaign
+    effect with a weak prior, wide when there are few campaigns), estimated from the
+    held-out rows of each campaign predicted by the regression on the *other*
+    campaigns' training rows; ``predict(X, groups)`` applies it and
+    ``info_["between_campaign_sd"]`` reports it in the objective's units — a
+    lot-to-lot shift the network cannot see is then in the variance.  Without labels
+    (or with one campaign) nothing is added.
 
     References
     ----------
@@ -194,7 +197,6 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
     """
 
     input_encoding = "onehot"
-    uses_groups = True
 
     def __init__(self, seed: int = 0, quick: bool = False, hidden=(50, 50, 50),
                  activation: str = "tanh", batch_size: int | None = None, lr: float = 3e-3,
@@ -205,27 +207,6 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
         self.batch_size = batch_size
         self.lr = lr
         self.holdout = holdout
-
-    def fit(self, X, y, groups=None):
-        """Fit on ``X``, ``y``; ``groups`` (campaign labels, optional) only serve the
-        new-campaign variance scale (see Graceful degradation)."""
-        n = np.asarray(y).shape[0]
-        self._train_groups = (None if groups is None
-                              else np.asarray(groups, dtype=object).ravel())
-        if self._train_groups is not None and len(self._train_groups) != n:
-            raise ValueError(f"groups has {len(self._train_groups)} entries for {n} rows")
-        return super().fit(X, y)
-
-    def predict(self, X, groups=None):
-        """Predictive mean and sd; rows of a campaign absent from training get the
-        new-campaign variance scale, all others (and ``groups=None``) the row scale."""
-        mean, std = super().predict(X)
-        if groups is not None and self.variance_scale_new_ != self.variance_scale_:
-            seen = set(self.groups_seen_)
-            new = np.array([g not in seen for g in np.asarray(groups, dtype=object).ravel()])
-            std = np.where(new, std * math.sqrt(self.variance_scale_new_
-                                                / self.variance_scale_), std)
-        return mean, std
 
     def _fit(self, Xs, ys):
         torch_threads()
@@ -252,7 +233,7 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
             self._blr(Phi[train], ys[train])
             mv, sv = self._predict(Xs[val])
             self.variance_scale_ = inner_variance_scale(ys[val], mv, sv)
-        self.variance_scale_new_ = self._new_campaign_scale(Phi, ys, train, val)
+        self.campaign_offset_var_ = self._campaign_offset_var(Phi, ys, train, val)
         alpha, beta, evidence = self._blr(Phi, ys)
         self._noise_std_s = math.sqrt(self.variance_scale_ / beta)
         self.info_ = {"epochs_run": train_info["epochs_run"],
@@ -261,17 +242,16 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
                       "alpha": alpha, "beta": beta, "log_evidence": evidence,
                       "n_basis": int(Phi.shape[1]),
                       "variance_scale": float(self.variance_scale_),
-                      "variance_scale_new_campaign": float(self.variance_scale_new_)}
+                      **self._campaign_info()}
 
-    def _new_campaign_scale(self, Phi, ys, train, val):
-        """Variance scale for rows of a campaign absent from training: the held-out rows
-        of each campaign predicted by the regression on the training rows of the *other*
-        campaigns (needs two or more campaigns; else the row scale)."""
+    def _campaign_offset_var(self, Phi, ys, train, val):
+        """Between-campaign offset variance (nets.campaign_offset_variance) from the
+        held-out rows of each campaign, predicted by the regression on the training rows
+        of the *other* campaigns with the row scale applied; 0 with fewer than two."""
         g = getattr(self, "_train_groups", None)
-        self.groups_seen_ = [] if g is None else list(dict.fromkeys(g.tolist()))
         if g is None or len(self.groups_seen_) < 2 or not len(val):
-            return self.variance_scale_
-        yv, mv, sv = [], [], []
+            return 0.0
+        yv, mv, sv, gv = [], [], [], []
         for c in dict.fromkeys(g[val].tolist()):
             others = train[g[train] != c]
             rows = val[g[val] == c]
@@ -281,11 +261,12 @@ class DNGO(LatentSamplerMixin, ScaledSurrogate):
             proj = Phi[rows] @ self._U
             yv.append(ys[rows])
             mv.append(Phi[rows] @ self.w_mean_)
-            sv.append(np.sqrt((proj ** 2) @ (1.0 / self._d) + 1.0 / self.beta_))
+            sv.append(np.sqrt(((proj ** 2) @ (1.0 / self._d) + 1.0 / self.beta_)
+                              * self.variance_scale_))
+            gv.append(g[rows])
         if not yv:
-            return self.variance_scale_
-        scale = inner_variance_scale(np.concatenate(yv), np.concatenate(mv), np.concatenate(sv))
-        return max(scale, self.variance_scale_)
+            return 0.0
+        return campaign_offset_variance(*(np.concatenate(a) for a in (yv, mv, sv, gv)))
 
     def _blr(self, Phi, ys):
         """Evidence-maximizing Bayesian linear regression on ``Phi``; sets the posterior."""

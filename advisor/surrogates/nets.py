@@ -8,7 +8,10 @@
 * :func:`holdout_split`, :func:`epoch_batches`, :func:`epochs_for` — data handling for
   mini-batch training with early stopping;
 * :class:`LatentSamplerMixin` — ``sample_y`` in raw units from a model's
-  ``_sample_latent`` on standardized data.
+  ``_sample_latent`` on standardized data;
+* :func:`inner_variance_scale`, :func:`campaign_offset_variance` and
+  :class:`NewCampaignMixin` — the widening fitted on inner held-out rows, and the
+  variance a campaign absent from training adds (a random campaign offset).
 
 All randomness here comes from a ``torch.Generator`` or a numpy ``Generator`` passed in;
 nothing reads or changes torch's global random state.
@@ -22,10 +25,13 @@ import os
 import numpy as np
 import torch
 
+from .base import _with_return_std
+
 __all__ = ["torch_threads", "torch_generator", "StackedMLP", "mixture_moments",
            "holdout_split", "epoch_batches", "epochs_for", "as_tensor",
            "LatentSamplerMixin", "THREADS_ENV", "train_with_early_stopping",
-           "inner_variance_scale", "SCALE_PRIOR_DF"]
+           "inner_variance_scale", "SCALE_PRIOR_DF", "campaign_offset_variance",
+           "CAMPAIGN_PRIOR_DF", "NewCampaignMixin"]
 
 #: Environment variable read by :func:`torch_threads`.
 THREADS_ENV = "ADVISOR_TORCH_THREADS"
@@ -408,3 +414,108 @@ def inner_variance_scale(y, mean, std) -> float:
         return 1.0
     s2 = (SCALE_PRIOR_DF + float(z2.sum())) / (SCALE_PRIOR_DF + len(z2))
     return max(s2, 1.0)
+
+
+#: Prior degrees of freedom of the between-campaign offset variance (our choice: one
+#: pseudo-campaign, weakly informative; see :func:`campaign_offset_variance`).
+CAMPAIGN_PRIOR_DF = 1.0
+
+
+def campaign_offset_variance(y, mean, std, groups) -> float:
+    """Variance that a campaign absent from training adds to a prediction.
+
+    Campaigns (material lots, batch series, search rounds) shift the objective by an
+    offset ``b_c`` that the inputs do not explain.  Treating the offsets as a random
+    effect, ``b_c ~ N(0, s_b^2)`` (the one-way hierarchical normal model, Gelman et al.
+    2013, BDA3 Sec. 5.4-5.5), the prediction for a *new* campaign has the model's
+    variance plus ``s_b^2`` — the same term ``s_c^2`` that a GP with a per-campaign
+    offset adds for a new campaign.  We estimate ``s_b^2`` from held-out rows of the
+    ``k`` training campaigns, each predicted without the rows of its own campaign where
+    the model allows it (DNGO, the neural process): the mean residual ``r_c`` of
+    campaign ``c`` over its ``n_c`` rows estimates ``b_c`` with sampling variance about
+    ``v_bar / n_c`` (``v_bar`` = the mean predictive variance ``std^2``), so ``d_c =
+    max(r_c^2 - v_bar / n_c, 0)`` (method of moments).  With a scaled-inverse-chi-square
+    prior on ``s_b^2`` of ``nu_0`` = :data:`CAMPAIGN_PRIOR_DF` degrees of freedom and
+    scale ``v_bar`` (a new campaign may be off by about the model's own predictive sd —
+    our choice), the conditional posterior is scaled-inverse-chi-square with ``nu_n =
+    nu_0 + k`` and ``nu_n s_n^2 = nu_0 v_bar + sum_c d_c`` (BDA3 Sec. 2.6), and we return
+    its mean ``nu_n s_n^2 / (nu_n - 2)`` (BDA3 Appendix A).  With few campaigns the
+    between-campaign spread is barely identified and this is wide (two campaigns:
+    ``v_bar + sum d_c``); with many it approaches the offsets' mean square.  The
+    estimate in the units of ``y``; 0 with fewer than two campaigns.
+
+    This is our answer to "how much more uncertain is a new campaign", the
+    parametric, campaign-level counterpart of held-out recalibration (Kuleshov,
+    Fenner & Ermon 2018, ICML): rows of one campaign share its offset, so the evidence
+    counts in campaigns, not in rows.
+
+    Parameters
+    ----------
+    y, mean, std : array_like, shape (m,)
+        Held-out targets and the model's predictive mean and sd there.
+    groups : array_like, shape (m,)
+        Campaign of each row.
+
+    Returns
+    -------
+    float
+        ``s_b^2 >= 0`` in squared units of ``y``.
+    """
+    y, mean, std = (np.asarray(a, dtype=float).ravel() for a in (y, mean, std))
+    groups = np.asarray(groups, dtype=object).ravel()
+    if not (len(y) == len(mean) == len(std) == len(groups)):
+        raise ValueError("y, mean, std and groups must have the same length")
+    if len(y) == 0 or not np.all(np.isfinite((y - mean) / std)):
+        return 0.0
+    labels = list(dict.fromkeys(groups.tolist()))
+    k = len(labels)
+    if k < 2:
+        return 0.0
+    v_bar = float(np.mean(std ** 2))
+    d = 0.0
+    for c in labels:
+        r = (y - mean)[groups == c]
+        d += max(float(r.mean()) ** 2 - v_bar / len(r), 0.0)
+    nu_n = CAMPAIGN_PRIOR_DF + k
+    return (CAMPAIGN_PRIOR_DF * v_bar + d) / (nu_n - 2.0)
+
+
+class NewCampaignMixin:
+    """``fit(X, y, groups)`` / ``predict(X, groups)`` for a :class:`ScaledSurrogate`
+    whose ``_fit`` sets ``campaign_offset_var_`` (standardized units; see
+    :func:`campaign_offset_variance`): rows of a campaign absent from training get
+    that variance added, all others (and ``groups=None``) the model's own.  ``_fit``
+    reads the training campaigns from ``self._train_groups`` (None without labels)."""
+
+    uses_groups = True
+
+    def fit(self, X, y, groups=None):
+        """Fit on ``X``, ``y``; ``groups`` (campaign labels, optional) only serve the
+        new-campaign variance."""
+        n = np.asarray(y).shape[0]
+        self._train_groups = (None if groups is None
+                              else np.asarray(groups, dtype=object).ravel())
+        if self._train_groups is not None and len(self._train_groups) != n:
+            raise ValueError(f"groups has {len(self._train_groups)} entries for {n} rows")
+        self.groups_seen_ = ([] if self._train_groups is None
+                             else list(dict.fromkeys(self._train_groups.tolist())))
+        return super().fit(X, y)
+
+    @_with_return_std
+    def predict(self, X, groups=None):
+        """Predictive mean and sd; rows of a campaign absent from training get the
+        between-campaign offset variance added."""
+        mean, std = super().predict(X)
+        extra = float(getattr(self, "campaign_offset_var_", 0.0))
+        if groups is not None and extra > 0:
+            seen = set(self.groups_seen_)
+            new = np.array([g not in seen for g in np.asarray(groups, dtype=object).ravel()])
+            if len(new) != len(std):
+                raise ValueError(f"groups has {len(new)} entries for {len(std)} rows")
+            std = np.where(new, np.sqrt(std ** 2 + extra * self.y_scale_ ** 2), std)
+        return mean, std
+
+    def _campaign_info(self):
+        """Facts for ``info_``: the offset sd in the objective's units."""
+        return {"between_campaign_sd": float(math.sqrt(self.campaign_offset_var_)
+                                             * getattr(self, "y_scale_", 1.0))}

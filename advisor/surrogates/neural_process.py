@@ -9,8 +9,8 @@ import numpy as np
 import torch
 
 from .base import ScaledSurrogate, check_fit_inputs
-from .nets import (StackedMLP, as_tensor, holdout_split, inner_variance_scale,
-                   mixture_moments, torch_generator, torch_threads)
+from .nets import (StackedMLP, as_tensor, campaign_offset_variance, holdout_split,
+                   inner_variance_scale, mixture_moments, torch_generator, torch_threads)
 
 __all__ = ["NeuralProcess"]
 
@@ -113,10 +113,13 @@ class NeuralProcess(ScaledSurrogate):
     ``info_["mode"]`` records which.  The mixture's variance is multiplied by a scale
     ``s^2 >= 1`` fitted on the held-out rows
     (:func:`advisor.surrogates.nets.inner_variance_scale`, ``info_["variance_scale"]``);
-    when meta-trained, a second scale is fitted for new campaigns, on the held-out rows
-    predicted as if their campaign were new (the mixture over the *other* training
-    campaigns; ``info_["variance_scale_new_campaign"]``), since predicting an unseen
-    campaign is a harder task than predicting more rows of a known one.
+    when meta-trained, rows of a new campaign also get a between-campaign offset
+    variance added (:func:`advisor.surrogates.nets.campaign_offset_variance`, a random
+    campaign effect, wide when there are few campaigns), estimated from the held-out
+    rows predicted as if their campaign were new (the mixture over the *other* training
+    campaigns; ``info_["between_campaign_sd"]``, the objective's units), since
+    predicting an unseen campaign is a harder task than predicting more rows of a known
+    one.
 
     Parameters
     ----------
@@ -232,7 +235,7 @@ class NeuralProcess(ScaledSurrogate):
         self.info_ = {"mode": (f"meta-trained across {n_groups} campaigns" if n_groups >= 2
                                else "single campaign, random context/target splits")}
         X, y = as_tensor(Xs), as_tensor(ys)
-        self.variance_scale_ = self.variance_scale_new_ = 1.0
+        self.variance_scale_, self.campaign_offset_var_ = 1.0, 0.0
         self.net_ = _NPNet(Xs.shape[1], p["width"], p["r_dim"], p["z_dim"], gen)
         train, val = holdout_split(len(ys), self.holdout, rng)
         pools = [train[codes[train] == c] for c in np.unique(codes[train])]
@@ -258,9 +261,9 @@ class NeuralProcess(ScaledSurrogate):
             # overconfidence; see nets.inner_variance_scale
             mv, sv = self._predict_groups(Xs[val], codes[val], None, n_draws=p["z_draws"])
             self.variance_scale_ = inner_variance_scale(ys[val], mv, sv)
-            self.variance_scale_new_ = (
-                self._new_campaign_scale(Xs[val], ys[val], codes[val], p["z_draws"])
-                if n_groups >= 2 else self.variance_scale_)
+            if n_groups >= 2:
+                self.campaign_offset_var_ = self._campaign_offset_var(
+                    Xs[val], ys[val], codes[val], p["z_draws"])
         self._set_context(Xs, ys, codes)
         _, std = self._predict_groups(Xs, codes, None, n_draws=p["z_draws"],
                                       noise_only=True)
@@ -269,7 +272,8 @@ class NeuralProcess(ScaledSurrogate):
                            int(best_step if len(val) else step),
                            "held_out_rows": int(len(val)), "campaigns": int(n_groups),
                            "variance_scale": float(self.variance_scale_),
-                           "variance_scale_new_campaign": float(self.variance_scale_new_)})
+                           "between_campaign_sd": float(
+                               math.sqrt(self.campaign_offset_var_) * self.y_scale_)})
 
     def _neg_elbo(self, X, y, pool, gen, rng):
         p = self._preset
@@ -368,8 +372,8 @@ class NeuralProcess(ScaledSurrogate):
                 mean[rows], std[rows] = mu.mean(0), np.sqrt((sd ** 2).mean(0))
             else:
                 m, v = mixture_moments(mu, sd ** 2)
-                scale = self.variance_scale_new_ if new else self.variance_scale_
-                mean[rows], std[rows] = m, np.sqrt(v * scale)
+                extra = self.campaign_offset_var_ if new else 0.0
+                mean[rows], std[rows] = m, np.sqrt(v * self.variance_scale_ + extra)
         return mean, std
 
     def _components(self, Xs, parts, n_draws, gen):
@@ -378,13 +382,13 @@ class NeuralProcess(ScaledSurrogate):
         comps = [self._condition(xc, yc, xq, n_draws, gen) for xc, yc in parts]
         return (np.concatenate([c[0] for c in comps]), np.concatenate([c[1] for c in comps]))
 
-    def _new_campaign_scale(self, Xv, yv, codes_v, n_draws):
-        """The variance scale for a campaign without training rows: each held-out row
-        predicted as if its campaign were new (the mixture over the *other* training
-        campaigns), scored against its value (nets.inner_variance_scale)."""
+    def _campaign_offset_var(self, Xv, yv, codes_v, n_draws):
+        """The between-campaign offset variance (nets.campaign_offset_variance): each
+        held-out row predicted as if its campaign were new (the mixture over the *other*
+        training campaigns, row scale applied)."""
         gen = torch_generator(self.seed + 1)
         known = sorted(set(np.unique(self._ctx_codes).tolist()))
-        ys, ms, ss = [], [], []
+        ys, ms, ss, gs = [], [], [], []
         for c in np.unique(codes_v):
             others = [k for k in known if k != c]
             if not others:
@@ -392,10 +396,11 @@ class NeuralProcess(ScaledSurrogate):
             rows = np.flatnonzero(codes_v == c)
             mu, sd = self._components(Xv[rows], self._parts(others), n_draws, gen)
             m, v = mixture_moments(mu, sd ** 2)
-            ys.append(yv[rows]), ms.append(m), ss.append(np.sqrt(v))
+            ys.append(yv[rows]), ms.append(m), ss.append(np.sqrt(v * self.variance_scale_))
+            gs.append(np.full(len(rows), c))
         if not ys:
-            return self.variance_scale_
-        return inner_variance_scale(np.concatenate(ys), np.concatenate(ms), np.concatenate(ss))
+            return 0.0
+        return campaign_offset_variance(*(np.concatenate(a) for a in (ys, ms, ss, gs)))
 
     def _predict(self, Xs):
         return self._predict_groups(Xs, np.full(len(Xs), -1), None,
