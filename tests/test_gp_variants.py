@@ -17,6 +17,47 @@ def _offset_log(seed, n_camp=8, per=25, sc=1.0, noise=0.1):
     return X, y, g, offs
 
 
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_campaign_gp_likelihood_value_matches_direct_formula(seed):
+    # the restricted likelihood's value (no prior, offsets only) against the direct
+    # formula with the intercept integrated out ([RW2006] Eq. 2.45, inverse and
+    # log-determinant by numpy), at random hyperparameters, with campaigns present
+    from advisor.surrogates.gp import matern52
+    from advisor.surrogates.gp_campaign import _nlml, _same
+    rng = np.random.default_rng(seed)
+    X, y, g, _ = _offset_log(seed, n_camp=4, per=10)
+    y = (y - y.mean()) / y.std()
+    S = _same(g, g)
+    x = rng.normal(scale=0.7, size=X.shape[1] + 3)
+    value, _ = _nlml(x, X, y, S, 1e-8, slopes=False, prior=False)
+    p = np.exp(x)
+    K = matern52(X, X, p[:2], p[2]) + p[4] * S + (p[3] + 1e-8) * np.eye(len(y))
+    Ki = np.linalg.inv(K)
+    A = Ki.sum()
+    P = Ki - Ki @ np.outer(np.ones(len(y)), np.ones(len(y))) @ Ki / A
+    direct = (0.5 * y @ P @ y + 0.5 * np.linalg.slogdet(K)[1] + 0.5 * np.log(A)
+              + 0.5 * (len(y) - 1) * np.log(2 * np.pi))
+    assert value == pytest.approx(direct, rel=1e-8)
+
+
+def test_campaign_gp_warm_started_refit_keeps_the_optimum():
+    # a warm-started refit on the same data starts at the fitted optimum (slopes
+    # included), so it must end there: same variances and predictions up to
+    # L-BFGS-B's stopping rule (our tolerance)
+    from advisor.surrogates.gp_campaign import CampaignGP
+    X, y, g, _ = _offset_log(0, n_camp=4, per=12)
+    first = CampaignGP(seed=0, quick=True).fit(X, y, g)
+    warm = first.warm_started()
+    assert warm.restarts == 0 and warm.slope_variance is not None
+    again = warm.fit(X, y, g)
+    np.testing.assert_allclose(again.between_campaign_sd_, first.between_campaign_sd_,
+                               rtol=0.05)
+    np.testing.assert_allclose(again.noise_std_, first.noise_std_, rtol=0.05)
+    mu1, sd1 = first.predict(X[:10], g[:10])
+    mu2, sd2 = again.predict(X[:10], g[:10])
+    np.testing.assert_allclose(mu2, mu1, atol=0.02 * y.std())
+
+
 @pytest.mark.slow
 def test_campaign_gp_recovers_between_campaign_sd_and_noise():
     # true s_c = 1.0 with 8 campaigns: the ML estimate of an sd from 8 draws has relative

@@ -160,3 +160,15 @@ def test_pdf_shows_between_campaign_sd_and_the_new_gp_facts(tmp_path):
     assert "between-campaign standard deviation is" in full
     assert f"{sd:.4g}"[:4] in full
     assert "transform: " + a.model_info["warped_gp"]["transform"] in full
+
+
+def test_backtest_section_names_the_backtested_models_and_why():
+    # issue 12, item 8: only the models that can matter are backtested, and the report
+    # says which and why (the rule is the assessment's own text)
+    from advisor.assessment import _CANDIDATE_RULE
+    from advisor.report.sections.backtest import _intro_text
+    text = _intro_text({"surrogates": ["campaign_gp", "gp"],
+                        "candidates_rule": _CANDIDATE_RULE, "simulated": {}}, {})
+    assert "Models backtested: campaign_gp, gp (the calibration leader" in text
+    assert "the other models cannot change the recommendation" in text
+    assert "Models backtested" not in _intro_text({"simulated": {}}, {})

@@ -107,18 +107,28 @@ def _resampled(X, y, m, rng, bounds):
     return np.vstack([X, np.clip(Xe, bounds[:, 0], bounds[:, 1])]), np.append(y, ye)
 
 
+#: Rows of the untimed warm-up fit (see _time_surrogate).
+_WARM_ROWS = 32
+
+
 def _time_surrogate(make, name, seed, quick, space, X, y, sizes, repeats, n_predict,
                     encoding, clock):
     rng = np.random.default_rng(task_seed(seed, "cost", name, "data"))
     bounds = space.encoded_bounds(encoding)
     X_pred = space.encode(space.sample(n_predict, rng), encoding)
     fit_s, pred_s = [], []
-    # One untimed warm-up fit at the smallest size: first calls pay one-time costs
-    # (lazy imports, library initialization, page faults) that would inflate the
-    # smallest size's time and flatten the fitted exponent.
-    Xw, yw = _resampled(X, y, sizes[0], np.random.default_rng(task_seed(seed, "cost", "warm")),
-                        bounds)
-    make(name, seed=task_seed(seed, "cost", name, "warm"), quick=quick).fit(Xw, yw)
+    # One untimed warm-up fit: first calls pay one-time costs (lazy imports, library
+    # initialization) that would inflate the smallest size's time and flatten the
+    # fitted exponent.  Those costs do not depend on the size, so the warm-up runs on
+    # at most _WARM_ROWS rows (at the smallest size if that fails); it used to run at
+    # the smallest size, a quarter of a large log, for every model.
+    rng_w = np.random.default_rng(task_seed(seed, "cost", "warm"))
+    try:
+        Xw, yw = _resampled(X, y, min(sizes[0], _WARM_ROWS), rng_w, bounds)
+        make(name, seed=task_seed(seed, "cost", name, "warm"), quick=quick).fit(Xw, yw)
+    except Exception:
+        Xw, yw = _resampled(X, y, sizes[0], rng_w, bounds)
+        make(name, seed=task_seed(seed, "cost", name, "warm"), quick=quick).fit(Xw, yw)
     for m in sizes:
         Xm, ym = _resampled(X, y, m, np.random.default_rng(task_seed(seed, "cost", m)),
                             bounds)

@@ -130,6 +130,11 @@ def _intro_text(bt, cfg) -> str:
     text += ("The pool replay on the logged campaigns is a secondary diagnostic. Curves "
              "show normalized regret of the best so far: 0 is the pool's best value, 1 "
              "its worst; line = median, band = interquartile range.")
+    models = bt.get("surrogates") or []
+    if models and bt.get("candidates_rule"):
+        # issue 12, item 8: only the models that can matter are backtested; say which
+        rule = str(bt["candidates_rule"]).removeprefix("backtested: ")
+        text += f" Models backtested: {_e(', '.join(models))} ({_e(rule)})."
     return text
 
 

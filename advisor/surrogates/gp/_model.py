@@ -415,6 +415,15 @@ class MaternGP(ScaledSurrogate):
                           restart_size=self.restart_size, blas_threads=self.blas_threads,
                           hyperprior=self.hyperprior)
 
+    def warm_started(self) -> "MaternGP":
+        """An unfitted copy whose optimizer starts from this fit's hyperparameters
+        (raw units), with no random restarts (optional protocol member; the relevance
+        intervals' half-sample refits use it)."""
+        return type(self)(**dict(self.get_params(), restarts=0, optimize=True,
+                                 length_scale=self.length_scales_,
+                                 signal_variance=self.signal_variance_,
+                                 noise_variance=self.noise_std_ ** 2))
+
     # -- fitted hyperparameters in raw units --------------------------------------
     @property
     def length_scales_(self):
