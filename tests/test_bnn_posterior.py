@@ -81,3 +81,8 @@ def test_the_reported_convergence_counts_every_fold():
     assert out["converged"] is False and "1 of 3 folds" in out["warning"]
     assert _merge_info(res[1:])["converged"] is True
     assert "warning" not in _merge_info(res[1:])
+    # the largest fold unconverged: its own warning is kept, or the count's without one
+    res[1]["info"].update(converged=False, warning="R-hat 2.8 > 1.1")
+    assert _merge_info(res)["warning"] == "R-hat 2.8 > 1.1"
+    del res[1]["info"]["warning"]
+    assert "2 of 3 folds" in _merge_info(res)["warning"]

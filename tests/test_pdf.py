@@ -172,3 +172,35 @@ def test_backtest_section_names_the_backtested_models_and_why():
     assert "Models backtested: campaign_gp, gp (the calibration leader" in text
     assert "the other models cannot change the recommendation" in text
     assert "Models backtested" not in _intro_text({"simulated": {}}, {})
+
+
+
+def test_a_model_that_did_not_converge_says_so_in_json_pdf_and_terminal(assessment,
+                                                                      tmp_path):
+    # issue 14: a sampler that does not converge must report that it did not.  The
+    # per-fold facts of a model whose chain converged on 2 of its 4 folds (the largest
+    # among them) are merged as the assessment merges them; the count and a warning
+    # must reach all three outputs.
+    import io
+
+    from rich.console import Console
+
+    from advisor.assessment import _merge_info
+    from advisor.report.export import assessment_to_dict
+    from advisor.report.terminal import print_assessment
+    a, name = assessment, "user_models:BayesRidge"
+    folds = [{"info": {"n_train": n, "converged": n >= 60}} for n in (24, 48, 72, 84)]
+    saved = a.model_info.get(name)
+    a.model_info[name] = _merge_info(folds)
+    try:
+        d = assessment_to_dict(a)
+        full = _flat(" ".join(_text(write_pdf(a, tmp_path / "r.pdf"))[1]))
+        buf = io.StringIO()
+        print_assessment(a, d, [], Console(file=buf, width=300))
+    finally:
+        a.model_info[name] = saved
+    info = next(r for r in d["ranking"] if r["surrogate"] == name)["info"]
+    assert info["converged_folds"] == "2 of 4" and info["converged"] is False
+    assert "not converged on 2 of 4 folds" in info["warning"]
+    assert "converged folds: 2 of 4" in full and "not converged on 2 of 4 folds" in full
+    assert "not converged" in buf.getvalue() and "2 of 4" in buf.getvalue()

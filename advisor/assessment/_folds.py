@@ -212,8 +212,11 @@ def _merge_info(res: list[dict]) -> dict:
     flags = [bool(r["info"]["converged"]) for r in res if "converged" in r["info"]]
     if flags:
         out["converged_folds"] = f"{sum(flags)} of {len(flags)}"
-        if not all(flags) and out.get("converged", True):
+        if not all(flags):
+            # the fold count's warning, unless the largest fold did not converge and
+            # said why itself (e.g. the BNN's split-R-hat)
+            if out.get("converged", True) or not out.get("warning"):
+                out["warning"] = (f"sampler not converged on {len(flags) - sum(flags)} "
+                                  f"of {len(flags)} folds; treat the uncertainty with care")
             out["converged"] = False
-            out["warning"] = (f"sampler not converged on {len(flags) - sum(flags)} of "
-                              f"{len(flags)} folds; treat the uncertainty with care")
     return out

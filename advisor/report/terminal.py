@@ -47,12 +47,21 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
         guards = r.get("guards") or {}
         if guards and not (guards.get("coverage") and guards.get("order")):
             note = (note + " " if note else "") + "guard"
+        if (r.get("info") or {}).get("converged") is False:
+            note = (note + " " if note else "") + "not converged"
         t.add_row(str(r["rank"]), r["surrogate"], _f(m.get("crps"), "{:.4g}"),
                   "–" if not ci or ci[0] is None else f"{ci[0]:.3g}–{ci[1]:.3g}",
                   _f(m.get("nll")), _f(m.get("coverage_90"), "{:.2f}"),
                   _f(m.get("calibration_error"), "{:.3f}"), _f(m.get("spearman"), "{:.2f}"),
                   _f(comp.get("p_best"), "{:.2f}"), _f(m.get("fit_seconds"), "{:.2f}"), note)
     con.print(t)
+    for r in d["ranking"]:
+        info = r.get("info") or {}
+        if info.get("converged") is False:
+            folds = info.get("converged_folds")
+            con.print(f"[bold]{r['surrogate']}:[/] "
+                      + (f"converged on {folds} folds; " if folds else "")
+                      + escape(str(info.get("warning") or "sampler not converged")))
     by = v.get("metrics_by_scheme") or {}
     if len(by) > 1:
         for scheme, scores in list(by.items())[1:]:

@@ -26,9 +26,11 @@ __all__ = ["surrogate_names", "make_surrogate", "describe_surrogate", "Surrogate
 #: name -> (import path, one-line description).  Order is the display order.
 BUILTIN: dict[str, tuple[str, str]] = {
     "gp": ("advisor.surrogates.gp:MaternGP",
-           "Gaussian process, Matérn-5/2 ARD kernel, type-II ML (Rasmussen & Williams 2006)"),
+           "Gaussian process, Matérn-5/2 ARD kernel, MAP under a length-scale prior (RW2006; "
+           "Hvarfner et al. 2024)"),
     "campaign_gp": ("advisor.surrogates.gp_campaign:CampaignGP",
-                    "GP plus a per-campaign random offset (Laird & Ware 1982; RW2006 Sec. 2.7)"),
+                    "GP plus a per-campaign random offset and linear slopes (Laird & Ware 1982; "
+                    "RW2006 Sec. 2.7)"),
     "warped_gp": ("advisor.surrogates.warping:WarpedGP",
                   "GP on a log / Yeo-Johnson warp of the objective (Snelson et al. 2004)"),
     "forest": ("advisor.surrogates.forest:RandomForestSurrogate",

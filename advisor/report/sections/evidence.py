@@ -270,7 +270,7 @@ def _model_notes(v: _View) -> list:
             elif isinstance(val, (list, tuple)):
                 if len(val) > 6:
                     continue
-                val = ", ".join(str(x) for x in val)
+                val = ", ".join(f"{x:.4g}" if isinstance(x, float) else str(x) for x in val)
             facts.append(f"{k.replace('_', ' ')}: {val}")
         rows.append(_cells([_name(e["surrogate"]), _e(e.get("description", "")),
                             _e("; ".join(facts)) or "–"]))
