@@ -3,6 +3,7 @@ behind the batch check's margin (benchmarks/next_campaign.py, tests/test_next_ca
 
     python benchmarks/batch_margin.py                      # seeds 0-4 x 64 replicates
     python benchmarks/batch_margin.py --seeds 5-7 --reps 24 --out /tmp/more.json
+    python benchmarks/batch_margin.py --q 2 --seeds 1,4 --out /tmp/q2.json   # batch size 2
 
 The campaign is the next-campaign benchmark's batch campaign (Hartmann-3, EI xi=0.01,
 30 trials, local penalization with per-axis slopes, one fit per batch), run with
@@ -41,7 +42,7 @@ from advisor.execution import task_seed  # noqa: E402
 STUCK = 0.2
 
 
-def measure(seeds, reps, progress=print) -> dict:
+def measure(seeds, reps, progress=print, q=4) -> dict:
     bf = nc.CONFIGS["small"]["batch_function"]
     budget = nc.CONFIGS["small"]["batch_budget"]
     sd = nc._noise_sd(bf)
@@ -52,7 +53,7 @@ def measure(seeds, reps, progress=print) -> dict:
             raw = {"sequential": [], "batch": [], "random search": []}
             for r in range(reps):
                 raw["sequential"].append(nc._run(bf, nc.DEFAULT, r, budget, sd, seed))
-                raw["batch"].append(nc._run(bf, nc.DEFAULT, r, budget, sd, seed, q=4))
+                raw["batch"].append(nc._run(bf, nc.DEFAULT, r, budget, sd, seed, q=q))
                 raw["random search"].append(nc._run(bf, None, r, budget, sd, seed))
             s = float(np.mean(raw["random search"]))
             for r in range(reps):
@@ -60,7 +61,7 @@ def measure(seeds, reps, progress=print) -> dict:
                              **{k: v[r] / s for k, v in raw.items()}})
             progress(f"seed {seed}: {time.perf_counter() - t0:.0f} s wall, "
                      f"{time.process_time() - c0:.0f} s CPU")
-    return {"function": bf, "q": 4, "budget": budget, "setting": nc.DEFAULT.label,
+    return {"function": bf, "q": q, "budget": budget, "setting": nc.DEFAULT.label,
             "seeds": list(seeds), "reps_per_seed": reps, "rows": rows,
             "wall_seconds": time.perf_counter() - t0,
             "cpu_seconds": time.process_time() - c0}
@@ -120,11 +121,12 @@ def main(argv=None):
     ap.add_argument("--seeds", default="0-4")
     ap.add_argument("--reps", type=int, default=64)
     ap.add_argument("--out", default=str(ROOT / "benchmarks" / "results" / "batch_margin.json"))
+    ap.add_argument("--q", type=int, default=4, help="batch size (the check's is 4)")
     ap.add_argument("--summarize", action="store_true",
                     help="recompute the summary of the measurement in --out")
     args = ap.parse_args(argv)
     res = (json.loads(Path(args.out).read_text()) if args.summarize
-           else measure(_seeds(args.seeds), args.reps))
+           else measure(_seeds(args.seeds), args.reps, q=args.q))
     res["summary"] = summarize(res)
     print(json.dumps(res["summary"], indent=1))
     Path(args.out).write_text(json.dumps(res, indent=1, default=float))

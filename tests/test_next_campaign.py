@@ -77,8 +77,9 @@ def test_batch_campaign_beats_random_search(small):
 # batch 18%, sequential 11%; discordant pairs 44 vs 21, exact McNemar p = 0.006).  The
 # check's bound at 64 replicates was 0.12, 0.37, 0.18, 0.22, 0.27 at seeds 0-4 (fails at
 # 4 of 5); showing a mean below 0.15 at this spread (sd 0.59) would take about 1,300
-# pairs.  Seed 0 (the fixture's) happens to pass, so
-# the xfail is not strict; the margin was not moved.
+# pairs.  Not the prior (without it, seeds 1 and 4: 0.10 +- 0.04) and not simply fewer
+# updates (q = 2 on the same pairs: 0.16 +- 0.05, q = 4: 0.19 +- 0.05).  Seed 0 (the
+# fixture's) happens to pass, so the xfail is not strict; the margin was not moved.
 @pytest.mark.slow
 @pytest.mark.xfail(strict=False, reason="batch - sequential measured 0.11 +- 0.03 "
                    "(320 pairs); the 0.15 margin cannot be shown at a cheap size and "
