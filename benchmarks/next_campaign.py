@@ -25,7 +25,11 @@ For each published test function with a known minimum:
    campaign five model fits, and one replicate in ten stays in a local basin of
    Hartmann-3 (measured, 32 replicates: batch 0.12, sequential 0.02 of random search's
    regret, bound 0.19 over the margin); with 30 trials the bound was 0.07 (24
-   replicates, seed 0).
+   replicates, seed 0) -- a lucky seed: over 5 seeds x 64 paired replicates (GP with
+   the MAP length-scale prior) batch - sequential is 0.110 (Monte-Carlo standard error
+   0.033) and the bound exceeds 0.15 at 4 of 5 seeds (``benchmarks/batch_margin.py``,
+   ``results/batch_margin.json``; without the prior, seeds 1 and 4: 0.10 +- 0.04).  The
+   margin part is not supported; its test is an xfail.
 
 Regret: the true (noise-free) value of the best setting *run* minus the known minimum;
 normalized per function by the mean regret of random search (random = 1, optimum = 0).
@@ -38,7 +42,8 @@ Tests (stated, over function x replicate pairs):
 * the recommended setting *beats random search and grid search*: one-sided Wilcoxon
   signed-rank test (scipy), p < 0.05 each;
 * the q = 4 batch *beats random search* (Wilcoxon, p < 0.05) and is *within*
-  ``BATCH_MARGIN`` = 0.15 of sequential (bootstrap upper bound of batch - sequential).
+  ``BATCH_MARGIN`` = 0.15 of sequential (bootstrap upper bound of batch - sequential;
+  reported, not met at most seeds: see 4. above).
 
 Test functions (definitions, domains and minima from Surjanovic, S. & Bingham, D.
 (2013), Virtual Library of Simulation Experiments, Simon Fraser University; values

@@ -3,7 +3,7 @@ published test functions meet their stated minima, and the issue's claims hold -
 the recommended acquisition setting is not worse than the default (EI xi=0.01) beyond
 0.10 of normalized regret (one-sided 95% paired bootstrap), beats random and grid
 search (one-sided Wilcoxon signed-rank, p < 0.05), and a q = 4 batch by local
-penalization beats random search and is within 0.15 of sequential.
+penalization beats random search (its margin to sequential is an xfail, see below).
 
 Small size: Branin and Hartmann-3, 6 paired replicates of 24 trials (12 pairs for the
 pooled tests); the batch campaign on Hartmann-3, 24 paired replicates of 30 trials."""
@@ -52,19 +52,38 @@ def test_recommended_beats_random_and_grid_search(small):
 
 # The batch check (GDHL2016 local penalization, advisor/batching.py): Hartmann-3, q = 4,
 # 30 trials, paired replicates (same starts, candidates and noise as the sequential
-# and random campaigns).  Tests: one-sided Wilcoxon signed-rank of batch < random
-# search at level 0.05; batch - sequential below the margin 0.15 of normalized regret
-# by its one-sided 95% paired-bootstrap upper bound.  Before the per-axis penalizer
-# (2026-12-02, 8 replicates of 24 trials, one Lipschitz constant for every axis) this
-# was a strict xfail: batch 0.55 vs sequential 0.03 vs random 1.00, p = 0.125 -- the
-# batches spread along the coordinate the GP ignored and agreed on the one it used.
-# Measured 2026-12-03, 24 replicates of 30 trials: seed 0 batch 0.049, sequential 0.020,
-# random 1.00, p = 6e-8, bound 0.067.  The margin part is seed-sensitive at this size
-# (seeds 1, 2: bounds 0.15, 0.32; one campaign stuck in a local basin moves the mean by
-# 0.05); the full size's 48 replicates gave 0.095.  Adds about 17 CPU seconds.
+# and random campaigns).  Before the per-axis penalizer (2026-12-02, 8 replicates of 24
+# trials, one Lipschitz constant for every axis) batch 0.55 vs sequential 0.03 vs random
+# 1.00, p = 0.125 -- the batches spread along the coordinate the GP ignored and agreed
+# on the one it used.
+#
+# Beats random search: one-sided Wilcoxon signed-rank of batch < random at level 0.05.
+# Measured 2026-12-03 with the MAP length-scale prior (benchmarks/batch_margin.py,
+# results/batch_margin.json, 64 replicates per seed): p = 5e-10, 7e-7, 1e-10, 3e-9,
+# 8e-10 at seeds 0-4; at 24 replicates p <= 3e-4 at seeds 0-2 (before the prior).
 @pytest.mark.slow
-def test_batch_campaign_against_random_and_sequential(small):
+def test_batch_campaign_beats_random_search(small):
     b = small["batch"]
     assert b["q"] == 4 and b["replicates"] >= 16
     assert b["beats_random"]["p"] < b["beats_random"]["level"], b
+
+
+# Within the margin 0.15 of sequential (one-sided 95% paired-bootstrap upper bound of the
+# mean of batch - sequential normalized regret): NOT supported by our measurement.
+# benchmarks/batch_margin.py, 5 seeds x 64 paired replicates (320 pairs, current GP with
+# the MAP length-scale prior): batch - sequential = 0.110, Monte-Carlo standard error
+# 0.033, 95% bootstrap interval [0.047, 0.176]; median difference 0.004 -- the mean is
+# driven by campaigns left in a local basin of Hartmann-3 (normalized regret > 0.2:
+# batch 18%, sequential 11%; discordant pairs 44 vs 21, exact McNemar p = 0.006).  The
+# check's bound at 64 replicates was 0.12, 0.37, 0.18, 0.22, 0.27 at seeds 0-4 (fails at
+# 4 of 5); showing a mean below 0.15 at this spread (sd 0.59) would take about 1,300
+# pairs.  Not the prior (without it, seeds 1 and 4: 0.10 +- 0.04) and not simply fewer
+# updates (q = 2 on the same pairs: 0.16 +- 0.05, q = 4: 0.19 +- 0.05).  Seed 0 (the
+# fixture's) happens to pass, so the xfail is not strict; the margin was not moved.
+@pytest.mark.slow
+@pytest.mark.xfail(strict=False, reason="batch - sequential measured 0.11 +- 0.03 "
+                   "(320 pairs); the 0.15 margin cannot be shown at a cheap size and "
+                   "fails at 4 of 5 seeds with 64 replicates (benchmarks/batch_margin.py)")
+def test_batch_campaign_within_margin_of_sequential(small):
+    b = small["batch"]
     assert b["within_sequential"]["upper_95"] < b["within_sequential"]["margin"], b
