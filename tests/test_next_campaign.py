@@ -3,7 +3,7 @@ published test functions meet their stated minima, and the issue's claims hold -
 the recommended acquisition setting is not worse than the default (EI xi=0.01) beyond
 0.10 of normalized regret (one-sided 95% paired bootstrap), beats random and grid
 search (one-sided Wilcoxon signed-rank, p < 0.05), and a q = 4 batch by local
-penalization beats random search (its margin to sequential is an xfail, see below).
+penalization beats random search (its margin to sequential is not shown: see below).
 
 Small size: Branin and Hartmann-3, 6 paired replicates of 24 trials (12 pairs for the
 pooled tests); the batch campaign on Hartmann-3, 24 paired replicates of 30 trials."""
@@ -79,11 +79,6 @@ def test_batch_campaign_beats_random_search(small):
 # 4 of 5); showing a mean below 0.15 at this spread (sd 0.59) would take about 1,300
 # pairs.  Not the prior (without it, seeds 1 and 4: 0.10 +- 0.04) and not simply fewer
 # updates (q = 2 on the same pairs: 0.16 +- 0.05, q = 4: 0.19 +- 0.05).  Seed 0 (the
-# fixture's) happens to pass, so the xfail is not strict; the margin was not moved.
-@pytest.mark.slow
-@pytest.mark.xfail(strict=False, reason="batch - sequential measured 0.11 +- 0.03 "
-                   "(320 pairs); the 0.15 margin cannot be shown at a cheap size and "
-                   "fails at 4 of 5 seeds with 64 replicates (benchmarks/batch_margin.py)")
-def test_batch_campaign_within_margin_of_sequential(small):
-    b = small["batch"]
-    assert b["within_sequential"]["upper_95"] < b["within_sequential"]["margin"], b
+# fixture's) happens to pass; a test that passes here by the seed's luck and cannot fail
+# as an xfail would check nothing, so the margin part is not a test: it stays an open
+# gap of issue 12, measured by benchmarks/batch_margin.py.
