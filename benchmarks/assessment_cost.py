@@ -209,11 +209,15 @@ def main(argv=None):
                "memory_gb": round(psutil.virtual_memory().total / 2**30, 1),
                "note": "shared machine: other work ran at the same time; see load averages"}
     out = Path(args.out)
-    old = json.loads(out.read_text()) if out.exists() and args.only else {}
+    old = json.loads(out.read_text()) if out.exists() else {}
+    if not args.only:
+        old = {"previous_runs": old.get("previous_runs")}
     keep = [r for r in old.get("results", []) if r["case"] not in names]
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(json.dumps({"machine": machine, "results": keep + results}, indent=2,
-                              default=float) + "\n")
+    doc = {"machine": machine, "results": keep + results}
+    if old.get("previous_runs"):  # earlier measurements kept for before/after figures
+        doc["previous_runs"] = old["previous_runs"]
+    out.write_text(json.dumps(doc, indent=2, default=float) + "\n")
     print(f"wrote {out}")
 
 
