@@ -117,6 +117,34 @@ def _thorough138(tmp: Path):
 CASES = {"quick500": _quick500, "thorough138": _thorough138}
 
 
+def _fewer_starts_power(bt: dict, sim: dict) -> dict:
+    """``power_at_0.1`` and the decision had the plan made fewer starts per stand-in.
+
+    The runs of the first k starts are exactly the runs a plan with ``sim_seeds = k``
+    makes (starts, model seeds and noise are seeded per stand-in and start), so the
+    decision is recomputed on them without refitting anything: whether fewer paired
+    runs keep the power at 0.1 at or above 0.9."""
+    import copy
+
+    from advisor.backtest._choice import _decide
+
+    if not sim or sim.get("error") or not sim.get("results"):
+        return {}
+    seeds = 1 + max(r["seed_index"] for res in sim["results"] for r in res["runs"])
+    out = {}
+    for keep in range(2, seeds):
+        b2 = copy.deepcopy(bt)
+        for res in b2["simulated"]["results"]:
+            res["runs"] = [r for r in res["runs"] if r["seed_index"] < keep]
+        runs = keep * len(sim.get("functions") or [])
+        out[f"{runs}_runs"] = {}
+        for n in bt.get("surrogates") or []:
+            dec = _decide(b2, n, int(bt["config"]["seed"]))
+            out[f"{runs}_runs"][n] = {"power_at_0.1": dec.get("power_at_0.1"),
+                                      "chosen": dec.get("chosen")}
+    return out
+
+
 def run_case(name: str, jobs: int, tmp: Path, profile: str | None) -> dict:
     from advisor import assess, assessment
 
@@ -149,6 +177,7 @@ def run_case(name: str, jobs: int, tmp: Path, profile: str | None) -> dict:
                              "p_holm": {k["label"]: k["p_holm"] for k in
                                         (c.get("decision") or {}).get("comparisons") or []}}
                          for n, c in (bt.get("per_surrogate") or {}).items()},
+            "power_at_0.1_first_starts": _fewer_starts_power(bt, sim),
             "baselines_auc_median": {k: ((sim.get(k) or {}).get("auc") or {}).get("median")
                                      for k in ("random", "grid")},
             "load_average_before": list(load0), "load_average_after": list(os.getloadavg())}
@@ -180,11 +209,15 @@ def main(argv=None):
                "memory_gb": round(psutil.virtual_memory().total / 2**30, 1),
                "note": "shared machine: other work ran at the same time; see load averages"}
     out = Path(args.out)
-    old = json.loads(out.read_text()) if out.exists() and args.only else {}
+    old = json.loads(out.read_text()) if out.exists() else {}
+    if not args.only:
+        old = {"previous_runs": old.get("previous_runs")}
     keep = [r for r in old.get("results", []) if r["case"] not in names]
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(json.dumps({"machine": machine, "results": keep + results}, indent=2,
-                              default=float) + "\n")
+    doc = {"machine": machine, "results": keep + results}
+    if old.get("previous_runs"):  # earlier measurements kept for before/after figures
+        doc["previous_runs"] = old["previous_runs"]
+    out.write_text(json.dumps(doc, indent=2, default=float) + "\n")
     print(f"wrote {out}")
 
 

@@ -515,6 +515,17 @@ def test_cheap_updates_reoptimize_on_schedule(trials):
                 pool["y"], [0, 1], n_picks=10, refit_every=1, reoptimize_every=5, rng=0)
     assert calls == {"full": 3, "fixed": 7}
 
+    # a model whose retrain costs the same at any size (the neural process) says
+    # reoptimize_on_doubling = False: over 7 picks full fits at steps 0 and 5 only (not
+    # at 2, where the training set doubled), 5 held refits
+    calls.update(full=0, fixed=0)
+    Counting.reoptimize_on_doubling = False
+    replay_pool(make, "gp", AcquisitionSetting("ei", {"xi": 0.01}), trials.space, frame,
+                pool["y"], [0, 1], n_picks=7, refit_every=1, reoptimize_every=5, rng=0)
+    assert calls == {"full": 2, "fixed": 5}
+    from advisor.surrogates.neural_process import NeuralProcess
+    assert NeuralProcess.reoptimize_on_doubling is False
+
 
 def test_replay_paired_test_cannot_decide_with_four_campaigns():
     # The replay's own test: a setting better than the default on all 4 campaigns has

@@ -215,6 +215,25 @@ def test_neural_process_records_mode_and_conditions_on_campaign():
     np.testing.assert_allclose(unseen[0], allrows[0], rtol=1e-12)
 
 
+def test_neural_process_held_network_conditions_on_new_trials_without_training():
+    # The backtest's cheap update (with_fixed_hyperparameters): the trained network is
+    # kept and only the context changes, as a neural process is meant to be used
+    # (Garnelo et al. 2018, sec. 2.4).  Conditioned on the same trials it is the same
+    # model; conditioned on one campaign's rows it shows that campaign's level.
+    rng = np.random.default_rng(10)
+    X, y, g = _campaigns(rng, [2.0, -2.0, 0.0], 30)
+    meta = make_surrogate("neural_process", seed=0, quick=True).fit(X, y, groups=g)
+    Xq = np.linspace(-2, 2, 6)[:, None]
+    same = meta.with_fixed_hyperparameters().fit(X, y, groups=g)
+    for a, b in zip(same.predict(Xq), meta.predict(Xq)):
+        np.testing.assert_allclose(a, b, rtol=1e-12)
+    assert same.noise_std_ == pytest.approx(meta.noise_std_, rel=1e-12)
+    up = meta.with_fixed_hyperparameters().fit(X[g == "c0"], y[g == "c0"])
+    down = meta.with_fixed_hyperparameters().fit(X[g == "c1"], y[g == "c1"])
+    assert up.net_ is meta.net_ and down.net_ is meta.net_   # nothing was trained
+    assert np.mean(up.predict(Xq)[0] - down.predict(Xq)[0]) > 1.0
+
+
 def test_campaign_offset_variance_recovers_the_between_campaign_variance():
     # One-way random-effects model (Gelman et al. 2013, BDA3 Sec. 5.4): 300 campaigns of
     # 8 rows, offsets N(0, 0.6^2), noise N(0, 1), the model's sd the true within sd 1.

@@ -31,8 +31,11 @@ candidate and stand-in, the same for every setting); the regret is scored on the
 noise-free values.  Models are refitted at every step (``refit_every``) with their quick
 budget; cheap updates (``reoptimize_every``): a full fit, hyperparameters re-optimized,
 every ``reoptimize_every`` steps or when the training set has doubled since the last
-one, and in between a model offering ``with_fixed_hyperparameters()`` (the GP) is
-refitted with those hyperparameters held, any other model kept as it was.  This follows
+one, and in between a model offering ``with_fixed_hyperparameters()`` is refitted
+with those hyperparameters held (the GPs; the neural process keeps its trained network
+and conditions on the run's trials, and is retrained every ``reoptimize_every`` steps
+only, not on doubling: ``reoptimize_on_doubling = False``), any other model kept as it
+was.  This follows
 the "prior/posterior draws as test functions" practice of e.g. Hennig & Schuler (2012,
 sec. 4); the candidate-set construction and the second class are ours.
 

@@ -52,8 +52,10 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
         only every ``reoptimize_every`` steps or when the training set has doubled
         since the last one; in between, a model offering
         ``with_fixed_hyperparameters()`` is refitted at every refit step with the
-        hyperparameters of its last full fit held, and any other model is kept as it
-        was (the incumbent is always current).  None: a full fit at every refit step.
+        hyperparameters of its last full fit held (the GPs: one Cholesky factorization;
+        the neural process: its trained network conditioned on the run's trials), and
+        any other model is kept as it was (the incumbent is always current).  None: a
+        full fit at every refit step.
     failures : RunFailures, optional
         Which pool members fail (:mod:`advisor.backtest._failures`): the model is then
         fitted on the successful trials only and the acquisition weighted by the run's
@@ -117,9 +119,10 @@ class _FitState:
         """The model for this step; None = keep the current one (a model with no
         fixed-hyperparameter path between two scheduled full fits)."""
         fixed = getattr(self.base, "with_fixed_hyperparameters", None)
+        doubling = bool(getattr(self.base, "reoptimize_on_doubling", True))
         if (reoptimize_every is None or self.base is None
                 or _schedule(step - self.base_step, len(key), len(self.base_key),
-                             int(reoptimize_every))):
+                             int(reoptimize_every), doubling)):
             model = _fitted(build, X, y, ("full",) + key, cache)
             self.base, self.base_key, self.base_step = model, key, step
             return model
@@ -128,12 +131,15 @@ class _FitState:
         return _fitted(fixed, X, y, ("fixed", self.base_key) + key, cache)
 
 
-def _schedule(steps_since: int, n_now: int, n_then: int, every: int) -> bool:
+def _schedule(steps_since: int, n_now: int, n_then: int, every: int,
+              doubling: bool = True) -> bool:
     """Re-optimize the hyperparameters now?  After ``every`` steps, or once the training
     set has doubled since the last optimization (early on a handful of points carries
     little information about the length scales, so the first ones are re-learned
-    sooner; our choice)."""
-    return steps_since >= every or n_now >= 2 * n_then
+    sooner; our choice).  A model whose class sets ``reoptimize_on_doubling = False``
+    (the neural process: a retrain costs the same at any size, and between retrains it
+    conditions on the new trials) is re-optimized after ``every`` steps only."""
+    return steps_since >= every or (doubling and n_now >= 2 * n_then)
 
 
 def _fantasy_refit(model, build):

@@ -123,6 +123,9 @@ def _updates_text(plan) -> str:
     if plan.reoptimize_every is None:
         return f"models refitted {every}, hyperparameters re-optimized at every refit"
     return (f"full fits (hyperparameters re-optimized) every {plan.reoptimize_every} "
-            "steps or when the training set has doubled since the last one; in between, "
-            f"a Gaussian process is refitted {every} with its hyperparameters held, and "
-            "a model without that path (forest, neural networks) is kept as it was")
+            "steps or when the training set has doubled since the last one (the neural "
+            f"process: every {plan.reoptimize_every} steps only); in between, a Gaussian "
+            f"process is refitted {every} with its hyperparameters held, the neural "
+            "process keeps its trained network and is conditioned on the run's trials, "
+            "and a model without such a path (forest, other neural networks) is kept as "
+            "it was")

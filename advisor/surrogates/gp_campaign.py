@@ -95,7 +95,13 @@ def _nlml(log_params, X, y, S, jitter, slopes=False, prior=True):
     L, info = linalg.lapack.dpotrf(K, lower=1, clean=1, overwrite_a=1)
     if info != 0:
         return 1e10, np.zeros(len(p))
-    Kinv = linalg.cho_solve((L, True), np.eye(n), check_finite=False)
+    # the inverse from the factor (LAPACK dpotri: about a third of the flops of solving
+    # against the identity); it fills the lower triangle, the upper one is zero (clean=1)
+    Kinv, info = linalg.lapack.dpotri(L, lower=1)
+    if info != 0:
+        return 1e10, np.zeros(len(p))
+    Kinv += Kinv.T
+    Kinv.flat[:: n + 1] *= 0.5
     k1 = Kinv.sum(1)
     A = float(k1.sum())
     if not A > 0:

@@ -158,6 +158,11 @@ class NeuralProcess(ScaledSurrogate):
 
     input_encoding = "onehot"
     uses_groups = True
+    # the backtest's cheap updates (advisor.backtest._pool): between two scheduled
+    # retrains the network is held and only conditioned on the run's new trials; a
+    # retrain costs the same whatever the size, so it is not repeated each time the
+    # training set doubles, only every ``reoptimize_every`` steps
+    reoptimize_on_doubling = False
 
     def __init__(self, seed: int = 0, quick: bool = False, lr: float = 3e-3,
                  holdout: float = 0.15):
@@ -180,8 +185,41 @@ class NeuralProcess(ScaledSurrogate):
         return np.array([self._group_index.get(g, -1) for g in labels], dtype=int)
 
     # -- protocol -----------------------------------------------------------------
+    def with_fixed_hyperparameters(self) -> "NeuralProcess":
+        """An unfitted copy holding this fit's network (optional protocol member).
+
+        Fitting the copy trains nothing: it keeps the trained network, its input and
+        output scaling and its variance scale, and takes the new trials as the context
+        to condition on, which is what a neural process is for ([GSR2018] Sec. 2.4:
+        prediction is conditioning on a context, training is done once).  The backtest
+        uses it for cheap updates within a simulated campaign (see
+        :func:`advisor.backtest.replay_pool`): milliseconds instead of a retrain.
+        """
+        held = type(self)(seed=self.seed, quick=self.quick, lr=self.lr,
+                          holdout=self.holdout)
+        held._held = {k: getattr(self, k) for k in (
+            "net_", "_preset", "x_mean_", "x_scale_", "y_mean_", "y_scale_",
+            "variance_scale_", "campaign_offset_var_")}
+        held._held["info_"] = dict(self.info_, mode="network held from an earlier fit, "
+                                                     "conditioned on the new trials")
+        return held
+
+    def _fit_held(self, X, y, groups):
+        for k, v in self._held.items():
+            setattr(self, k, v)
+        codes = self._codes(groups, len(y), fit=True)
+        Xs, ys = self._scale_x(X), (y - self.y_mean_) / self.y_scale_
+        self._set_context(Xs, ys, codes)
+        _, std = self._predict_groups(Xs, codes, None, n_draws=self._preset["z_draws"],
+                                      noise_only=True)
+        self._noise_std_s = math.sqrt(float(np.mean(std ** 2)))
+        self.info_ = dict(self.info_)
+        return self
+
     def fit(self, X, y, groups=None):
         X, y = check_fit_inputs(X, y)
+        if getattr(self, "_held", None) is not None:
+            return self._fit_held(X, y, groups)
         codes = self._codes(groups, len(y), fit=True)
         Xs, ys = self._scale_fit(X, y)
         self._fit_groups(Xs, ys, codes)
