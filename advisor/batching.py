@@ -74,6 +74,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
+from scipy.optimize import brentq
 from scipy.special import log_ndtr
 
 from .acquisition import AcquisitionSetting, acquisition_values
@@ -81,7 +82,7 @@ from .surrogates.base import check_predictions
 
 __all__ = ["Batch", "build_batch", "latent_moments", "lipschitz_estimate", "axis_slopes",
            "penalizer_log", "unit_cube", "smallest_distance", "BATCH_REFERENCES",
-           "weight_by_success", "MIN_SUCCESS"]
+           "weight_by_success", "MIN_SUCCESS", "MAX_CORRELATION", "separation_radius"]
 
 #: method name -> short citation, for the report.
 BATCH_REFERENCES = {
@@ -112,6 +113,25 @@ class Batch:
     lipschitz: float | None = None
     draws: str | None = None
     axis_weights: np.ndarray | None = None
+    min_separation: np.ndarray | None = None
+
+
+#: Separation guard of local penalization: no two members of a batch whose prior
+#: correlation under the model's fitted Matérn-5/2 kernel exceeds this (see
+#: :func:`separation_radius` and the module docstring).
+MAX_CORRELATION = 0.9
+
+
+def separation_radius(max_correlation: float = MAX_CORRELATION) -> float:
+    """Distance ``r`` in length-scale units at which the Matérn-5/2 correlation
+    ``(1 + sqrt5 r + 5 r^2 / 3) exp(-sqrt5 r)`` (Rasmussen & Williams 2006, Eq. 4.17)
+    falls to ``max_correlation`` (0.9 -> about 0.35)."""
+    c = float(max_correlation)
+    if not 0.0 < c < 1.0:
+        raise ValueError(f"max_correlation={c} must be in (0, 1)")
+    s5 = np.sqrt(5.0)
+    return float(brentq(lambda r: (1 + s5 * r + 5 * r * r / 3) * np.exp(-s5 * r) - c,
+                        0.0, 50.0))
 
 
 def latent_moments(model) -> Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]:
@@ -272,16 +292,45 @@ def build_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, be
     weights = g / L
     Uw = U * weights       # L * ||Uw - Uw_j|| = ||g * (U - U_j)||
     M = min(float(best), float(mean.min()))
+    ell = _unit_length_scales(model, U.shape[1], bounds)
+    Ul = None if ell is None else U / ell
+    r_min = separation_radius(MAX_CORRELATION) if ell is not None else None
     score = log_g.copy()
     chosen: list[int] = []
+    apart = np.full(n, np.inf)      # distance to the nearest chosen, in length scales
     for _ in range(q):
         s = score.copy()
         s[chosen] = -np.inf
+        if chosen and Ul is not None:
+            # the guard: nothing within r_min of a chosen point; when the fitted length
+            # scales put every candidate that close, keep the farther half instead
+            open_ = np.isfinite(s)
+            need = r_min if (open_ & (apart >= r_min)).any() else \
+                float(np.median(apart[open_])) if open_.any() else 0.0
+            s[apart < need] = -np.inf
         i = _argmax(s, rng)
         chosen.append(i)
         score += penalizer_log(Uw, Uw[i], mean[i], std[i], M, L)
+        if Ul is not None:
+            apart = np.minimum(apart, np.sqrt(((Ul - Ul[i]) ** 2).sum(-1)))
     return Batch(np.array(chosen, dtype=int), "local_penalization", lipschitz=L,
-                 axis_weights=weights)
+                 axis_weights=weights,
+                 min_separation=None if ell is None else r_min * ell)
+
+
+def _unit_length_scales(model, d: int, bounds) -> np.ndarray | None:
+    """The model's fitted length scales (``length_scales_``, raw encoded units) in
+    unit-cube units, or None when it has none of the right shape."""
+    ls = getattr(model, "length_scales_", None)
+    if ls is None:
+        return None
+    ls = np.asarray(ls, dtype=float).ravel()
+    if ls.shape != (d,) or not np.all(np.isfinite(ls)) or np.any(ls <= 0):
+        return None
+    if bounds is None:
+        return ls
+    width = np.diff(np.asarray(bounds, dtype=float).reshape(-1, 2), axis=1)[:, 0]
+    return ls / np.where(width > 0, width, 1.0)
 
 
 def _thompson_draws(model, setting, X, best, q, rng, y_scale, p_success=None) -> Batch:
