@@ -160,6 +160,12 @@ def test_separation_guard_keeps_batch_members_apart_in_length_scales():
     np.testing.assert_allclose(guarded.min_separation, r * ell / [1.0, 2.0])
     assert guarded.indices[0] == plain.indices[0]                  # the argmax of EI
     assert B.smallest_distance(X[guarded.indices] / ell) >= r
+    # a model wrapping a GP (as the warped GP does): the inner GP's length scales
+    wrapper = _Known(mean_fn, std=0.05)
+    wrapper.gp_ = _WithLengthScales(mean_fn, 0.05, ell)
+    wrapped = B.build_batch(wrapper, setting, X, 0.0, 4, np.random.default_rng(0),
+                            bounds=bounds)
+    assert list(wrapped.indices) == list(guarded.indices)
     # length scales that put every candidate within the radius: the farther half stays
     wide = B.build_batch(_WithLengthScales(mean_fn, 0.05, [50.0, 50.0]), setting, X, 0.0,
                          4, np.random.default_rng(0), bounds=bounds)
