@@ -50,6 +50,38 @@ Methods, by acquisition setting:
   0.01 (Branin 0.29 vs 0.39).  A flat mean on every axis gives
   ``g_k = 1e-7 * y_scale``.  Distances are in the unit cube: each encoded column scaled
   by its bounds.
+
+  **Separation guard** (our addition, for models that report fitted length scales,
+  ``length_scales_``, as the Matérn GP does, or wrap a GP that does, ``gp_``, as the
+  warped GP does; the campaign GP does not report them yet): a candidate closer to a chosen member than
+  ``separation_radius()`` ~= 0.37 length scales (``||(x - x_j) / ell|| < 0.37``, where
+  the fitted Matérn-5/2 kernel's prior correlation exceeds :data:`MAX_CORRELATION` =
+  0.9) cannot join the batch; when every candidate is that close (length scales longer
+  than the cube), the closer half is left out instead.  Why: the published penalizer
+  cannot keep a near-duplicate out at the model's minimum.  There ``mu_j`` is ``M``,
+  the radius ``(mu_j - M) / L`` is 0 and a point next to ``x_j`` keeps
+  ``Phi(0) = 1/2`` of its acquisition, so when the acquisition is flat near ``x_j`` the
+  next pick repeats the first.  This is
+  the method as published, not a slip: ``M`` (the paper's best value of the model; ours
+  is the lower of it and the incumbent, so our radii are never smaller) and the latent
+  ``s_j`` (the paper's posterior std of ``f``) follow the paper, and its ``L``, the
+  largest gradient norm, is at least our mean slope, which would shrink the radii
+  further.  Measured on the next-campaign loop (Hartmann-3, EI xi=0.01, q = 4, 30
+  trials, 320 paired campaigns, ``benchmarks/batch_margin.py``): without the guard the
+  first pick's radius had median 0.028 and lower quartile 0.0009 (per-axis weighted
+  unit cube), and 207 of 2,240 batches had two members closer than 0.02 in the unit
+  cube (a random batch's closest pair: median 0.34), 25 closer than 0.002; with the
+  guard none, and batch minus sequential normalized regret fell from 0.110 +- 0.033 to
+  0.002 +- 0.025 (campaigns left in a local basin: 18% -> 14%; sequential 11%).  On the
+  three sample logs the proposals' closest pair went from 7-37% of a random batch's to
+  44-107% (GP, quick, K = 5, EI and UCB, seeds 0 and 1).  A guard in length scales
+  rather than in the unit cube, because the length scale is the model's own measure of
+  how far apart two trials must be to tell it different things; the bound 0.9 was set
+  before measuring (common practice for "nearly the same experiment", not tuned).
+  Sensitivity on the same 320 pairs: 0.75 (0.63 length scales) 0.028 +- 0.029, 0.97
+  (0.19 length scales) 0.109 +- 0.033, as without the guard although only 1 of 2,240
+  batches then had a pair nearer than 0.02: the gap came from members within about a
+  third of a length scale, not only from literal duplicates.
 * **Thompson sampling: distinct joint draws** [KKSP2018]_ [HLRPA2017]_.  Each member
   of the batch minimizes its own joint posterior draw over the candidates (a fresh call
   of :func:`advisor.acquisition.acquisition_values`), among candidates not yet taken.
@@ -74,6 +106,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
+from scipy.optimize import brentq
 from scipy.special import log_ndtr
 
 from .acquisition import AcquisitionSetting, acquisition_values
@@ -81,7 +114,7 @@ from .surrogates.base import check_predictions
 
 __all__ = ["Batch", "build_batch", "latent_moments", "lipschitz_estimate", "axis_slopes",
            "penalizer_log", "unit_cube", "smallest_distance", "BATCH_REFERENCES",
-           "weight_by_success", "MIN_SUCCESS"]
+           "weight_by_success", "MIN_SUCCESS", "MAX_CORRELATION", "separation_radius"]
 
 #: method name -> short citation, for the report.
 BATCH_REFERENCES = {
@@ -112,6 +145,25 @@ class Batch:
     lipschitz: float | None = None
     draws: str | None = None
     axis_weights: np.ndarray | None = None
+    min_separation: np.ndarray | None = None
+
+
+#: Separation guard of local penalization: no two members of a batch whose prior
+#: correlation under the model's fitted Matérn-5/2 kernel exceeds this (see
+#: :func:`separation_radius` and the module docstring).
+MAX_CORRELATION = 0.9
+
+
+def separation_radius(max_correlation: float = MAX_CORRELATION) -> float:
+    """Distance ``r`` in length-scale units at which the Matérn-5/2 correlation
+    ``(1 + sqrt5 r + 5 r^2 / 3) exp(-sqrt5 r)`` (Rasmussen & Williams 2006, Eq. 4.17)
+    falls to ``max_correlation`` (0.9 -> about 0.37)."""
+    c = float(max_correlation)
+    if not 0.0 < c < 1.0:
+        raise ValueError(f"max_correlation={c} must be in (0, 1)")
+    s5 = np.sqrt(5.0)
+    return float(brentq(lambda r: (1 + s5 * r + 5 * r * r / 3) * np.exp(-s5 * r) - c,
+                        0.0, 50.0))
 
 
 def latent_moments(model) -> Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]:
@@ -272,16 +324,48 @@ def build_batch(model, setting: AcquisitionSetting, X_candidates: np.ndarray, be
     weights = g / L
     Uw = U * weights       # L * ||Uw - Uw_j|| = ||g * (U - U_j)||
     M = min(float(best), float(mean.min()))
+    ell = _unit_length_scales(model, U.shape[1], bounds)
+    Ul = None if ell is None else U / ell
+    r_min = separation_radius(MAX_CORRELATION) if ell is not None else None
     score = log_g.copy()
     chosen: list[int] = []
+    apart = np.full(n, np.inf)      # distance to the nearest chosen, in length scales
     for _ in range(q):
         s = score.copy()
         s[chosen] = -np.inf
+        if chosen and Ul is not None:
+            # the guard: nothing within r_min of a chosen point; when the fitted length
+            # scales put every candidate that close, keep the farther half instead
+            open_ = np.isfinite(s)
+            need = r_min if (open_ & (apart >= r_min)).any() else \
+                float(np.median(apart[open_])) if open_.any() else 0.0
+            s[apart < need] = -np.inf
         i = _argmax(s, rng)
         chosen.append(i)
         score += penalizer_log(Uw, Uw[i], mean[i], std[i], M, L)
+        if Ul is not None:
+            apart = np.minimum(apart, np.sqrt(((Ul - Ul[i]) ** 2).sum(-1)))
     return Batch(np.array(chosen, dtype=int), "local_penalization", lipschitz=L,
-                 axis_weights=weights)
+                 axis_weights=weights,
+                 min_separation=None if ell is None else r_min * ell)
+
+
+def _unit_length_scales(model, d: int, bounds) -> np.ndarray | None:
+    """The model's fitted length scales (``length_scales_``, raw encoded units; of its
+    inner GP ``gp_`` for a model that wraps one, as the warped GP does) in unit-cube
+    units, or None when it has none of the right shape."""
+    ls = getattr(model, "length_scales_", None)
+    if ls is None:
+        ls = getattr(getattr(model, "gp_", None), "length_scales_", None)
+    if ls is None:
+        return None
+    ls = np.asarray(ls, dtype=float).ravel()
+    if ls.shape != (d,) or not np.all(np.isfinite(ls)) or np.any(ls <= 0):
+        return None
+    if bounds is None:
+        return ls
+    width = np.diff(np.asarray(bounds, dtype=float).reshape(-1, 2), axis=1)[:, 0]
+    return ls / np.where(width > 0, width, 1.0)
 
 
 def _thompson_draws(model, setting, X, best, q, rng, y_scale, p_success=None) -> Batch:

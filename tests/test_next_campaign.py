@@ -58,9 +58,10 @@ def test_recommended_beats_random_and_grid_search(small):
 # on the one it used.
 #
 # Beats random search: one-sided Wilcoxon signed-rank of batch < random at level 0.05.
-# Measured 2026-12-03 with the MAP length-scale prior (benchmarks/batch_margin.py,
-# results/batch_margin.json, 64 replicates per seed): p = 5e-10, 7e-7, 1e-10, 3e-9,
-# 8e-10 at seeds 0-4; at 24 replicates p <= 3e-4 at seeds 0-2 (before the prior).
+# Measured 2026-12-03 with the MAP length-scale prior and the length-scale separation
+# guard of advisor/batching.py (benchmarks/batch_margin.py, results/batch_margin.json,
+# 64 replicates per seed): p <= 6e-11 at each of seeds 0-4 (before the guard 5e-10 to
+# 7e-7); at 24 replicates p <= 3e-4 at seeds 0-2 (before the prior and the guard).
 @pytest.mark.slow
 def test_batch_campaign_beats_random_search(small):
     b = small["batch"]
@@ -69,16 +70,13 @@ def test_batch_campaign_beats_random_search(small):
 
 
 # Within the margin 0.15 of sequential (one-sided 95% paired-bootstrap upper bound of the
-# mean of batch - sequential normalized regret): NOT supported by our measurement.
-# benchmarks/batch_margin.py, 5 seeds x 64 paired replicates (320 pairs, current GP with
-# the MAP length-scale prior): batch - sequential = 0.110, Monte-Carlo standard error
-# 0.033, 95% bootstrap interval [0.047, 0.176]; median difference 0.004 -- the mean is
-# driven by campaigns left in a local basin of Hartmann-3 (normalized regret > 0.2:
-# batch 18%, sequential 11%; discordant pairs 44 vs 21, exact McNemar p = 0.006).  The
-# check's bound at 64 replicates was 0.12, 0.37, 0.18, 0.22, 0.27 at seeds 0-4 (fails at
-# 4 of 5); showing a mean below 0.15 at this spread (sd 0.59) would take about 1,300
-# pairs.  Not the prior (without it, seeds 1 and 4: 0.10 +- 0.04) and not simply fewer
-# updates (q = 2 on the same pairs: 0.16 +- 0.05, q = 4: 0.19 +- 0.05).  Seed 0 (the
-# fixture's) happens to pass; a test that passes here by the seed's luck and cannot fail
-# as an xfail would check nothing, so the margin part is not a test: it stays an open
-# gap of issue 12, measured by benchmarks/batch_margin.py.
+# mean of batch - sequential normalized regret): supported by the measurement, not a
+# test.  benchmarks/batch_margin.py, 5 seeds x 64 paired replicates (320 pairs, GP with
+# the MAP prior, local penalization with the separation guard): batch - sequential =
+# 0.002, Monte-Carlo standard error 0.025, 95% bootstrap interval [-0.051, 0.051]; the
+# bound at 64 replicates 0.02, 0.14, 0.12, 0.09, 0.09 at seeds 0-4 (all below 0.15).
+# Before the guard 0.110 +- 0.033 and the bound failed at 4 of 5 seeds.  At the
+# fixture's 24 replicates the bound would exceed 0.15 in 43% of replicate sets
+# (resampled from the 320 pairs, Monte-Carlo error 2.5 points): a test at that size
+# would fail by chance, one at 64+ replicates would cost minutes; the margin stays a
+# measurement (benchmarks/batch_margin.py).

@@ -12,7 +12,8 @@ import numpy as np
 import pandas as pd
 
 from ..acquisition import incumbent, AcquisitionSetting, acquisition_values, parse_settings
-from ..batching import BATCH_REFERENCES, build_batch, smallest_distance, unit_cube
+from ..batching import (BATCH_REFERENCES, MAX_CORRELATION, build_batch, separation_radius,
+                        smallest_distance, unit_cube)
 from ..errors import UsageError
 from ..execution import task_seed
 from ..space import ParameterSpace
@@ -195,7 +196,10 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
         ``k`` rows (with a warning) when the space holds fewer new distinct settings.
         ``frame.attrs["batch"]`` says how the batch was built: ``method`` (a key of
         :data:`advisor.batching.BATCH_REFERENCES`), ``reference``, ``lipschitz``,
-        ``draws``, ``hyperparameters`` and ``diversity`` (see :func:`batch_diversity`).
+        ``draws``, ``separation`` (the guard of :func:`advisor.batching.build_batch`:
+        ``{"max_correlation", "radius_length_scales"}``, or None when the model reports
+        no length scales or the method is not local penalization), ``hyperparameters``
+        and ``diversity`` (see :func:`batch_diversity`).
     """
     _check_trials(trials)
     if int(k) < 1:
@@ -244,6 +248,9 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
         "lipschitz": None if batch is None or batch.lipschitz is None
         else float(batch.lipschitz),
         "draws": None if batch is None else batch.draws,
+        "separation": None if batch is None or batch.min_separation is None
+        else {"max_correlation": float(MAX_CORRELATION),
+              "radius_length_scales": separation_radius(MAX_CORRELATION)},
         "hyperparameters": "fitted once on the logged trials; fixed within the batch",
         "diversity": batch_diversity(space, picked, seed=seed, frozen=frozen)}
     return frame
