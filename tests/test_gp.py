@@ -120,7 +120,8 @@ def test_hyperprior_off_is_type_ii_maximum_likelihood():
     # and the prior matters here: at the MAP point the likelihood alone is not stationary
     _, g_ml = negative_log_marginal_likelihood(m.log_params_, Xs, ys)
     assert np.abs(g_ml).max() > 0.2
-    assert m.with_fixed_hyperparameters().hyperprior is True
+    assert m.with_fixed_hyperparameters().hyperprior is True   # the flag is kept
+    assert MaternGP().hyperprior is False   # off by default (see the package docstring)
 
 
 # -- fixed hyperparameters ----------------------------------------------------------

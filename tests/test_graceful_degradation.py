@@ -25,7 +25,16 @@ def _nll(model, X, y):
 
 @pytest.mark.slow
 @pytest.mark.parametrize("name", [
-    "dngo", "ensemble", "neural_process", "gp", "warped_gp", "campaign_gp", "forest",
+    "dngo", "ensemble", "neural_process", "forest",
+    # known gap (issue 14), measured NLL against the baseline's 1.471 + 0.05: the GP
+    # family fits by type-II maximum likelihood by default, which picks short length
+    # scales and little noise on 40 rows of noise (gp 3.54, warped gp 3.06, campaign gp
+    # 1.66); the length-scale prior that fixed it (hyperprior=True: 1.473, 1.473, 1.468)
+    # cost regret in real next campaigns (advisor/surrogates/gp/__init__.py), so it is
+    # off by default
+    *[pytest.param(n, marks=pytest.mark.xfail(strict=True, reason="overconfident on "
+                                              "pure noise"))
+      for n in ("gp", "warped_gp", "campaign_gp")],
     # the BNN (1.486) since its weight precision is Gibbs-sampled only once the sampler's
     # preconditioner is frozen: before, the scale-adapting burn-in ran hot (the weights
     # at 2.2-2.4 times their prior variance, measured with the precision held at 1) and
@@ -43,21 +52,24 @@ def test_pure_noise_nll_is_near_the_baseline(name):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("name, n_logs, bound", [("gp", 20, 4), ("forest", 10, 3)])
-def test_pure_noise_fallback_rate_over_seeds(name, n_logs, bound):
+@pytest.mark.parametrize("name, options, n_logs, bound", [
+    ("gp", {"hyperprior": True}, 20, 4), ("forest", {}, 10, 3)])
+def test_pure_noise_fallback_rate_over_seeds(name, options, n_logs, bound):
     # Seeded pure-noise logs as above: how many give a held-out NLL more than 0.05 above
-    # the baseline's.  Measured: gp 2 of 20, forest 2 of 10 (3 of 20) (binomial
-    # Monte-Carlo se of a share p from m logs: sqrt(p (1 - p) / m), 0.07 and 0.13);
-    # before the length-scale prior and the out-of-bag calibration 19 of 20 and 17 of 20.
-    # Bounds (our choice): about 2 se above the measured shares.  The forest runs 10 logs
-    # to keep the test to a few seconds.
+    # the baseline's.  Measured: gp with its opt-in length-scale prior 2 of 20 (19 of 20
+    # by type-II maximum likelihood, the default: see advisor/surrogates/gp/__init__.py
+    # for why), forest 2 of 10 (3 of 20) (binomial Monte-Carlo se of a share p from m
+    # logs: sqrt(p (1 - p) / m), 0.07 and 0.13); before the out-of-bag calibration the
+    # forest was 17 of 20.  Bounds (our choice): about 2 se above the measured shares.
+    # The forest runs 10 logs to keep the test to a few seconds.
     worse = 0
     for s in range(n_logs):
         rng = np.random.default_rng(100 + s)
         X, y = rng.uniform(size=(40, 6)), rng.standard_normal(40)
         Xt, yt = rng.uniform(size=(300, 6)), rng.standard_normal(300)
         base = _nll(make_surrogate("baseline").fit(X, y), Xt, yt)
-        worse += _nll(make_surrogate(name, seed=0, quick=True).fit(X, y), Xt, yt) > base + 0.05
+        model = make_surrogate(name, seed=0, quick=True, **options).fit(X, y)
+        worse += _nll(model, Xt, yt) > base + 0.05
     assert worse <= bound
 
 

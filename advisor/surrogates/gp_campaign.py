@@ -150,8 +150,9 @@ class CampaignGP(EstimatorMixin):
         (standardized inputs, centred on the training mean), to the per-campaign
         offset: kernel ``k(x, x') + [c = c'] (s_c^2 + sum_k t_k^2 x_k x'_k)``.
     hyperprior : bool
-        Log-normal length-scale prior (MAP) as in :class:`~advisor.surrogates.gp.MaternGP`;
-        ``False``: type-II maximum likelihood.
+        ``True``: log-normal length-scale prior (MAP) as in
+        :class:`~advisor.surrogates.gp.MaternGP`; ``False`` (default, as there): type-II
+        maximum likelihood.
     length_scale, signal_variance, noise_variance, campaign_variance, slope_variance : optional
         Starting values of the optimizer's fixed start, in raw units (encoded inputs,
         ``y``'s units; ``slope_variance`` per input, ``y``'s units squared per input unit
@@ -174,7 +175,7 @@ class CampaignGP(EstimatorMixin):
     uses_groups = True
 
     def __init__(self, seed=0, quick=False, *, restarts=None, jitter=1e-8,
-                 random_slopes=True, hyperprior=True, length_scale=None,
+                 random_slopes=True, hyperprior=False, length_scale=None,
                  signal_variance=None, noise_variance=None, campaign_variance=None,
                  slope_variance=None):
         self.seed = seed

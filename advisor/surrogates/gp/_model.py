@@ -80,8 +80,9 @@ class MaternGP(ScaledSurrogate):
         Beyond this many points the starts run on a random subset of this size and the
         best is polished on all points.
     hyperprior : bool
-        ``True`` (default): MAP under the log-normal length-scale prior [HHN2024];
-        ``False``: plain type-II maximum likelihood.
+        ``False`` (default): plain type-II maximum likelihood; ``True``: MAP under the
+        log-normal length-scale prior [HHN2024] (off by default: it cost regret in real
+        next campaigns, see the package docstring).
     blas_threads : int or None
         BLAS threads while fitting and predicting (``None``: the library default).  One by
         default: folds usually run in parallel processes, and spinning BLAS threads on
@@ -105,7 +106,7 @@ class MaternGP(ScaledSurrogate):
                  subset_size=None, optimize=True, length_scale=None, signal_variance=None,
                  noise_variance=None, normalize=True, noise_variance_bounds=None,
                  jitter=1e-8, maxiter=200, restart_size=400, blas_threads=1,
-                 hyperprior=True):
+                 hyperprior=False):
         super().__init__(seed=seed, quick=quick)
         self.restarts = restarts
         self.max_exact = max_exact
