@@ -297,6 +297,13 @@ class CampaignGP(EstimatorMixin):
             self.info_["campaign_slope_sd"] = [float(v) for v in self.campaign_slope_sd_]
         return self
 
+    @property
+    def length_scales_(self):
+        """Fitted ARD length scales of the Matérn part in raw encoded input units (as
+        :attr:`MaternGP.length_scales_ <advisor.surrogates.gp.MaternGP>`); the first
+        batch's separation guard and the relevance table read them."""
+        return self._ls * self.x_scale_
+
     def predict(self, X, groups=None):
         """Predictive mean and sd of a new observation; a campaign not seen in training
         (or ``groups=None``) gets an unknown offset (and slopes) whose variance
