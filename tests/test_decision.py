@@ -115,6 +115,34 @@ def test_the_paired_p_value_is_scipys_wilcoxon_and_holm_step_down():
     assert got[hi]["p_holm"] == pytest.approx(min(1, max(raw[hi], 2 * raw[lo])))
 
 
+def test_the_exact_signed_rank_p_value_equals_scipys_permutation_and_exact_p():
+    # Reference: scipy.stats.wilcoxon.  With ties or zeros and <= 13 runs scipy
+    # enumerates all 2**n sign patterns (a PermutationMethod with more resamples than
+    # patterns is exhaustive); without ties it uses the exact distribution at any n.
+    # Our convolution must give the same p-value in both cases, and it must also
+    # answer (exactly) beyond 13 runs with ties, where scipy falls back to the normal
+    # approximation: there the two agree to the approximation's error.
+    from advisor.backtest._decision import _one_sided_p
+
+    rng = np.random.default_rng(31)
+    for n in range(2, 14):
+        for _ in range(6):
+            d = np.round(rng.normal(0.2, 1.0, n), 1)   # rounded: ties and zeros
+            if np.all(d == 0):
+                continue
+            ref = stats.wilcoxon(d, alternative="less",
+                                 method=stats.PermutationMethod(n_resamples=20000)).pvalue
+            assert _one_sided_p(d) == pytest.approx(ref, abs=1e-12)
+    for n in (14, 24, 40):
+        d = rng.normal(0.3, 1.0, n)
+        ref = stats.wilcoxon(d, alternative="less", method="exact").pvalue
+        assert _one_sided_p(d) == pytest.approx(ref, abs=1e-12)
+    d = np.round(rng.normal(0.2, 1.0, 40), 1)
+    assert _one_sided_p(d) == pytest.approx(
+        stats.wilcoxon(d, alternative="less").pvalue, abs=0.01)
+    assert _one_sided_p(np.zeros(5)) == 1.0
+
+
 def test_a_close_untied_model_that_optimizes_better_is_named_as_the_pair():
     # forest is 5% worse by CRPS (inside the 10% margin) and not tied; dngo is 30% worse
     # (outside it) and optimizes even better, but is not a pair candidate.

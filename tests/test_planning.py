@@ -596,6 +596,26 @@ def test_cost_projection_records_a_failing_model():
     assert "boom" in res["surrogates"]["broken"]["error"]
 
 
+def test_cost_projection_in_worker_processes_matches_the_serial_schema():
+    # The assessment times the models in parallel, one per worker process: the same
+    # sizes, one timing per size and the projection for each model, and the method
+    # says how they were timed.
+    from advisor.execution import Executor
+
+    t = _smooth_log(0, n=40)
+    names = ["baseline", "forest"]
+    serial = P.cost_projection(t, names, seed=0, quick=True, budget=10)
+    par = P.cost_projection(t, names, seed=0, quick=True, budget=10,
+                            executor=Executor(jobs=2))
+    for name in names:
+        s, p = serial["surrogates"][name], par["surrogates"][name]
+        assert s["sizes"] == p["sizes"] and p["error"] is None
+        assert len(p["fit_seconds"]) == len(p["sizes"])
+        assert p["projected_seconds_per_iteration"] > 0
+    assert "one model per worker process" in par["method"]
+    assert "serial" in serial["method"]
+
+
 @pytest.mark.slow
 def test_freezing_is_opt_in():
     # d has no effect at all, so the relevance rule flags it (see

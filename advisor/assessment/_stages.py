@@ -148,7 +148,7 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         trials, leader, seed=seed, quick=quick, executor=executor))
     attempt("cost", lambda: planning.cost_projection(
         trials, names, seed=seed, quick=quick, budget=next_budget,
-        max_fit_seconds=max_fit_seconds, repeats=1))
+        max_fit_seconds=max_fit_seconds, repeats=1, executor=executor))
     proposals = None
     if propose:
         candidates = {p["name"]: p["freeze_value"] for p in
