@@ -526,6 +526,16 @@ def test_cheap_updates_reoptimize_on_schedule(trials):
     from advisor.surrogates.neural_process import NeuralProcess
     assert NeuralProcess.reoptimize_on_doubling is False
 
+    # a model offering warm_started() (both GPs) is re-optimized from the last full
+    # fit's hyperparameters: the same schedule as the first case, the run's first fit
+    # with its own starts, the later scheduled ones warm (one start, no restarts)
+    calls.update(full=0, fixed=0, warm=0)
+    Counting.reoptimize_on_doubling = True
+    Counting.warm_started = lambda self: Counting(self.inner.warm_started(), "warm")
+    replay_pool(make, "gp", AcquisitionSetting("ei", {"xi": 0.01}), trials.space, frame,
+                pool["y"], [0, 1], n_picks=10, refit_every=1, reoptimize_every=5, rng=0)
+    assert calls == {"full": 1, "warm": 2, "fixed": 7}
+
 
 def test_replay_paired_test_cannot_decide_with_four_campaigns():
     # The replay's own test: a setting better than the default on all 4 campaigns has

@@ -222,12 +222,22 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
     t_plan = time.perf_counter()
     planning_out, proposals = None, None
     if plan and rec["surrogate"] is not None:
-        planning_out, proposals = _plan(trials, rec, names=[n for n in names
-                                                            if n not in failures],
+        # Dearest fits first (by the cross-validation's fit seconds), so that the cost
+        # projection's worker processes finish at about the same time.
+        def fit_cost(n):
+            v = fit_s.get(n)
+            return float(v) if v is not None and np.isfinite(v) else 0.0
+
+        planned = sorted((n for n in names if n not in failures), key=fit_cost, reverse=True)
+        planning_out, proposals = _plan(trials, rec, names=planned,
                                         seed=seed, quick=quick, budget=budget,
                                         propose=propose, max_fit_seconds=max_fit_seconds,
                                         executor=executor, freeze=freeze,
                                         feasibility=feasibility_out)
+        cost = (planning_out or {}).get("cost")
+        if cost:  # the JSON keeps the ranking's order, whatever ran first
+            cost["surrogates"] = {n: cost["surrogates"][n] for n in names
+                                  if n in cost["surrogates"]}
     t_plan = time.perf_counter() - t_plan
     table = ranking.table
     noise_out = {"replicates": _replicate_noise(trials), "fitted": noise}

@@ -109,6 +109,10 @@ def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, spa
     return picked, draws
 
 
+#: Scheduled re-optimizations start from the last full fit (``warm_started()``).
+_WARM_REOPTIMIZE = True
+
+
 class _FitState:
     """The last full fit of a run, whose hyperparameters the cheap updates hold."""
 
@@ -123,7 +127,14 @@ class _FitState:
         if (reoptimize_every is None or self.base is None
                 or _schedule(step - self.base_step, len(key), len(self.base_key),
                              int(reoptimize_every), doubling)):
-            model = _fitted(build, X, y, ("full",) + key, cache)
+            warm = getattr(self.base, "warm_started", None)
+            if reoptimize_every is not None and callable(warm) and _WARM_REOPTIMIZE:
+                # Re-optimize from the last full fit's hyperparameters, one start and
+                # no random restarts (what a campaign's own loop does between
+                # iterations, common practice); the run's first fit has its own starts.
+                model = _fitted(warm, X, y, ("warm", self.base_key) + key, cache)
+            else:
+                model = _fitted(build, X, y, ("full",) + key, cache)
             self.base, self.base_key, self.base_step = model, key, step
             return model
         if not callable(fixed):
