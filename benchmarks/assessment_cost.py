@@ -63,8 +63,10 @@ class _StageClock:
     STAGES = {"_cross_validate": "cross_validation", "_run_backtest": "backtest",
               "_feasibility": "feasibility", "_plan": "planning"}
 
-    def __init__(self, module):
+    def __init__(self, module, stages: dict | None = None):
         self.module = module
+        if stages is not None:
+            self.STAGES = stages
         self.saved = {}
         self.stages: dict = {}
 
@@ -152,7 +154,13 @@ def run_case(name: str, jobs: int, tmp: Path, profile: str | None) -> dict:
     load0 = os.getloadavg()
     w0, c0 = time.perf_counter(), _cpu_now()
     prof = cProfile.Profile() if profile else None
-    with _StageClock(assessment) as clock:
+    from advisor import planning
+
+    # the planning stage's parts, timed the same way (assessment/_stages.py calls them
+    # through the package)
+    parts = {"parameter_relevance": "relevance", "learning_curve": "learning_curve",
+             "cost_projection": "cost_projection", "propose_batch": "proposals"}
+    with _StageClock(assessment) as clock, _StageClock(planning, parts) as plan_clock:
         if prof:
             prof.enable()
         a = assess(trials, seed=0, quick=quick, jobs=jobs, propose=5)
@@ -166,7 +174,15 @@ def run_case(name: str, jobs: int, tmp: Path, profile: str | None) -> dict:
     return {"case": name, "quick": quick, "jobs": jobs, **about,
             "wall_seconds": wall, "cpu_seconds": cpu, "target_wall_seconds": TARGETS[name],
             "meets_target": bool(wall <= TARGETS[name]),
-            "stages": clock.stages, "assessment_timing": a.timing,
+            "stages": clock.stages, "planning_parts": plan_clock.stages,
+            "assessment_timing": a.timing,
+            "cv_fit_seconds_per_fold": {
+                r["surrogate"]: float(r["fit_seconds"]) for _, r in a.ranking.iterrows()
+                if r.get("fit_seconds") is not None},
+            "cost_projection_seconds": {
+                n: float(sum(c.get("fit_seconds") or []) + sum(c.get("predict_seconds") or []))
+                for n, c in (((a.planning or {}).get("cost") or {}).get("surrogates")
+                             or {}).items()},
             "backtested": bt.get("surrogates"),
             "settings": [s["label"] for s in bt.get("settings") or []],
             "simulated_runs_per_setting": sim.get("runs_per_setting"),
@@ -204,6 +220,8 @@ def main(argv=None):
                   f"{r['simulated_runs_per_setting']}, power at 0.1 {r['power_at_0.1']}")
             for stage, v in r["stages"].items():
                 print(f"    {stage:16s} wall {v['wall_seconds']:6.1f}  cpu {v['cpu_seconds']:6.1f}")
+            for part, v in r["planning_parts"].items():
+                print(f"      {part:14s} wall {v['wall_seconds']:6.1f}  cpu {v['cpu_seconds']:6.1f}")
     machine = {"cpus": os.cpu_count(), "processor": platform.processor() or platform.machine(),
                "python": sys.version.split()[0], "platform": platform.platform(),
                "memory_gb": round(psutil.virtual_memory().total / 2**30, 1),
