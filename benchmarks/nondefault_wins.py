@@ -1,0 +1,230 @@
+"""Can the acquisition decision recommend a truly better non-default setting?
+
+    python benchmarks/nondefault_wins.py incumbent      # the table's real campaigns, plug-in incumbent
+    python benchmarks/nondefault_wins.py truth --cases branin:0.05,levy3:0.05 --reps 30
+    python benchmarks/nondefault_wins.py assess --cases branin:0.05 --log-seeds 0,1,2,3,4
+
+Writes (merges into) ``benchmarks/results/nondefault_wins.json``.
+
+The next-campaign benchmark (``benchmarks/next_campaign.py``) shows the rule is not worse
+than the default (EI, xi = 0.01); this one asks whether it ever picks a non-default that
+truly wins.  Three parts, each a section of the results file:
+
+* ``incumbent``: the table's real campaigns rerun with the product's incumbent (the
+  lowest posterior mean at the evaluated points, :func:`advisor.acquisition.incumbent`)
+  instead of the lowest noisy observation, same size as the table (10 replicates, 30
+  trials), against the table's numbers.
+* ``truth``: real next campaigns (the benchmark's own loop, ``next_campaign._run``)
+  of every setting of the full grid against the default, ``--reps`` paired replicates;
+  mean normalized-regret difference (setting - default; random search = 1) and the
+  one-sided Wilcoxon p of "the setting's final regret is lower" (scipy, no multiplicity
+  correction: this is the ground truth, one question per setting).  A case is a
+  function and a noise level (times the function's standard deviation over its domain).
+* ``assess``: for each case and past-log seed, the product's assessment of the past
+  logs (as the benchmark runs it: quick, the quick grid, budget from the logs) and, as
+  a diagnosis, the same with the full grid and the next campaign's budget (30 trials):
+  per setting the simulated mean AUC difference (setting - default), the p-values
+  overall and per stand-in class, the decision and ``power_at_0.1``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from scipy import stats
+from threadpoolctl import threadpool_limits
+
+ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+from advisor import assess, load_trials  # noqa: E402
+from advisor.acquisition import AcquisitionSetting, default_settings  # noqa: E402
+from benchmarks import next_campaign as nc  # noqa: E402
+
+OUT = ROOT / "benchmarks" / "results" / "nondefault_wins.json"
+DEFAULT = nc.DEFAULT
+
+
+def _p_less(a, b) -> float:
+    d = np.asarray(a, float) - np.asarray(b, float)
+    if np.all(d == 0):
+        return 1.0
+    return float(stats.wilcoxon(d, alternative="less").pvalue)
+
+
+def _noise(name, level):
+    return level / nc.NOISE * nc._noise_sd(name)
+
+
+def real_campaigns(name, level, reps, settings, seed=0, incumbent_rule="plug-in",
+                   budget=30, baselines=True) -> dict:
+    """Final regrets of real next campaigns, normalized by random search's mean."""
+    sd = _noise(name, level)
+    reg = {s.label: [nc._run(name, s, r, budget, sd, seed, incumbent_rule=incumbent_rule)
+                     for r in range(reps)] for s in settings}
+    reg["random search"] = [nc._run(name, None, r, budget, sd, seed) for r in range(reps)]
+    if baselines:
+        reg["grid search"] = [nc._grid_run(name, r, budget, seed) for r in range(reps)]
+    scale = float(np.mean(reg["random search"])) or 1.0
+    return {k: list(np.asarray(v) / scale) for k, v in reg.items()}
+
+
+def _summary(norm) -> dict:
+    base = np.asarray(norm[DEFAULT.label])
+    out = {}
+    for k, v in norm.items():
+        v = np.asarray(v)
+        out[k] = {"mean": float(v.mean()),
+                  "minus_default": float((v - base).mean()),
+                  "se_minus_default": float((v - base).std(ddof=1) / np.sqrt(len(v))),
+                  "p_beats_default": _p_less(v, base) if k != DEFAULT.label else None}
+    return out
+
+
+def part_incumbent(reps=10, seed=0, progress=print) -> dict:
+    old = json.loads((ROOT / "benchmarks" / "results" / "next_campaign.json").read_text())
+    settings = default_settings(quick=False)
+    out = {}
+    for name in nc.TABLE_FUNCTIONS:
+        t0 = time.process_time()
+        norm = real_campaigns(name, nc.NOISE, reps, settings, seed)
+        means = {k: float(np.mean(v)) for k, v in norm.items()}
+        old_means = old["functions"][name]["mean_normalized_regret"]
+        arms = [s.label for s in settings]
+        best = min(arms, key=means.get)
+        out[name] = {"mean_normalized_regret": means, "normalized_regret": norm,
+                     "best_setting": best, "default": means[DEFAULT.label],
+                     "old_mean_normalized_regret": old_means,
+                     "old_best_setting": old["functions"][name]["best_setting"],
+                     "p_default_new_vs_old": None, "cpu_seconds": time.process_time() - t0}
+        d_old = np.asarray(old["functions"][name]["normalized_regret"][DEFAULT.label])
+        # paired by replicate (same starts, candidates and noise); old normalized by the
+        # old random-search mean, which the incumbent does not touch
+        out[name]["p_default_new_vs_old"] = _p_less(norm[DEFAULT.label], d_old)
+        progress(f"{name}: default {old_means[DEFAULT.label]:.3f} -> {means[DEFAULT.label]:.3f}; "
+                 f"best {out[name]['old_best_setting']} -> {best} {means[best]:.3f}")
+    return {"reps": reps, "budget": 30, "noise": nc.NOISE, "functions": out}
+
+
+def part_truth(cases, reps, seed=0, progress=print) -> dict:
+    settings = default_settings(quick=False)
+    out = {}
+    for name, level in cases:
+        t0 = time.process_time()
+        norm = real_campaigns(name, level, reps, settings, seed)
+        summ = _summary(norm)
+        key = f"{name}@{level:g}"
+        winners = {k: v for k, v in summ.items() if k in {s.label for s in settings}
+                   and k != DEFAULT.label and v["minus_default"] <= -0.1
+                   and v["p_beats_default"] < 0.05}
+        out[key] = {"function": name, "noise": level, "reps": reps, "summary": summ,
+                    "normalized_regret": norm, "true_winners": sorted(winners),
+                    "cpu_seconds": time.process_time() - t0}
+        progress(f"{key}: default {summ[DEFAULT.label]['mean']:.3f}; " + ", ".join(
+            f"{k} {v['minus_default']:+.3f} (p {v['p_beats_default']:.3g})"
+            for k, v in summ.items() if k != DEFAULT.label))
+    return out
+
+
+def _decision_row(a) -> dict:
+    rec = a.recommendation
+    leader = rec["surrogate"]
+    bt = a.backtest or {}
+    dec = (bt.get("per_surrogate", {}).get(leader) or {}).get("decision") or {}
+    sim = bt.get("simulated") or {}
+    rows = {}
+    for c in dec.get("comparisons", []):
+        rows[c["label"]] = {
+            "mean_difference": c["mean_difference"], "p": c["p_value"],
+            "p_holm": c["p_holm"], "significant": c["significant"],
+            "by_class": {k: {"mean_difference": v["mean_difference"], "p": v["p_value"],
+                             "p_holm": v["p_holm"], "runs": v["runs"]}
+                         for k, v in (c.get("by_class") or {}).items()}}
+    return {"surrogate": leader, "recommended": AcquisitionSetting.from_dict(
+                rec["acquisition"]).label,
+            "chosen_by_test": dec.get("chosen"), "beats_default": dec.get("beats_default"),
+            "power_at_0.1": dec.get("power_at_0.1"), "comparisons": rows,
+            "simulated_budget": sim.get("budget"), "n_init": sim.get("n_init"),
+            "sim_noise_std": sim.get("noise_std")}
+
+
+def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> dict:
+    cfg = nc.CONFIGS["full"]
+    out = {}
+    for name, level in cases:
+        key = f"{name}@{level:g}"
+        sd = _noise(name, level)
+        for s in log_seeds:
+            log = nc._past_log(name, s, cfg["n_campaigns"], cfg["past_trials"], sd)
+            with tempfile.TemporaryDirectory() as tmp:
+                path = Path(tmp) / f"{name}.csv"
+                log.to_csv(path, index=False)
+                trials = load_trials(path, objective="y", campaign="campaign", order="step")
+                for v in variants:
+                    t0 = time.process_time()
+                    kw = dict(seed=s, quick=True, jobs=1, plan=False)
+                    if v == "full_grid_budget30":
+                        kw.update(acquisitions=default_settings(quick=False), budget=30)
+                    with threadpool_limits(1):
+                        a = assess(trials, **kw)
+                    row = _decision_row(a)
+                    row["cpu_seconds"] = time.process_time() - t0
+                    out.setdefault(key, {}).setdefault(v, {})[str(s)] = row
+                    progress(f"{key} seed {s} {v}: {row['recommended']} (power "
+                             f"{row['power_at_0.1']}); " + ", ".join(
+                                 f"{k} {c['mean_difference']:+.3f} " + "/".join(
+                                     f"{cl}:{b['mean_difference']:+.3f},p{b['p']:.2g}"
+                                     for cl, b in c["by_class"].items())
+                                 for k, c in row["comparisons"].items())
+                             + f"  [{row['cpu_seconds']:.0f} s cpu]")
+    return out
+
+
+def _cases(text):
+    out = []
+    for item in text.split(","):
+        n, lv = item.split(":")
+        out.append((n, float(lv)))
+    return out
+
+
+def _merge(section, value, key=None):
+    res = json.loads(OUT.read_text()) if OUT.exists() else {}
+    if key is None:
+        res[section] = value
+    else:
+        res.setdefault(section, {}).update(value)
+    OUT.write_text(json.dumps(res, indent=1, default=float))
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("part", choices=["incumbent", "truth", "assess"])
+    ap.add_argument("--cases", default="branin:0.05")
+    ap.add_argument("--reps", type=int, default=30)
+    ap.add_argument("--log-seeds", default="0")
+    ap.add_argument("--variants", default="benchmark")
+    args = ap.parse_args(argv)
+    if args.part == "incumbent":
+        _merge("incumbent", part_incumbent())
+    elif args.part == "truth":
+        _merge("truth", part_truth(_cases(args.cases), args.reps), key=True)
+    else:
+        res = part_assess(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")],
+                          args.variants.split(","))
+        old = json.loads(OUT.read_text()).get("assess", {}) if OUT.exists() else {}
+        for k, v in res.items():
+            for var, rows in v.items():
+                old.setdefault(k, {}).setdefault(var, {}).update(rows)
+        _merge("assess", old)
+
+
+if __name__ == "__main__":
+    main()
