@@ -12,7 +12,9 @@ For each published test function with a known minimum:
    recommended acquisition setting.
 3. **Next campaigns, for real.** Our own sequential loop, independent of the backtest:
    a GP (:func:`advisor.make_surrogate` ``"gp"``, quick budget) refitted at every step,
-   the acquisition maximized over 500 uniform + 500 perturbed-best candidates, for every
+   the acquisition maximized over 500 uniform + 500 perturbed-best candidates against
+   the product's incumbent (:func:`advisor.acquisition.incumbent`, the lowest posterior
+   mean at the evaluated points; before 2026-12-03 the lowest noisy observation), for every
    setting of the grid, from the same ``d + 1`` random starts, candidates and noise per
    replicate (paired); plus random search (same starts) and grid search (a full
    factorial at cell midpoints with ``floor(B^(1/d))`` levels, at least 2, a random
@@ -255,12 +257,14 @@ def _candidates(rng, d, X, Y, n=500):
                       np.clip(best + 0.1 * rng.standard_normal((n, d)), 0, 1)])
 
 
-def _run(name, setting, rep, budget, noise_sd, seed, q=1, incumbent_rule="plug-in"):
+def _run(name, setting, rep, budget, noise_sd, seed, q=1, incumbent_rule="plug-in",
+         trace=False):
     """One next campaign; returns the regret (true f of the best setting run - f*).
 
     ``incumbent_rule``: ``"plug-in"`` (the product's, :func:`advisor.acquisition.incumbent`)
     or ``"observed"`` (the lowest noisy observation; the loop's rule before stop 24, kept
-    to measure what the change did)."""
+    to measure what the change did).  ``trace``: return the true values of every trial
+    run, in order, instead."""
     f, d, fstar, _ = FUNCTIONS[name]
     n0 = d + 1
     start = np.random.default_rng(task_seed(seed, "start", name, rep)).random((n0, d))
@@ -296,6 +300,8 @@ def _run(name, setting, rep, budget, noise_sd, seed, q=1, incumbent_rule="plug-i
             X.append(x)
             Y.append(float(f(x[None])[0] + eps[len(X) - 1]))
         step += 1
+    if trace:
+        return f(np.array(X))
     return float(f(np.array(X)).min() - fstar)
 
 

@@ -76,6 +76,36 @@ def real_campaigns(name, level, reps, settings, seed=0, incumbent_rule="plug-in"
     return {k: list(np.asarray(v) / scale) for k, v in reg.items()}
 
 
+def _worst(name) -> float:
+    f, d, _, _ = nc.FUNCTIONS[name]
+    return float(f(np.random.default_rng(7).random((4096, d))).max())
+
+
+def real_traces(name, level, reps, settings, seed=0, budget=30, horizons=(12, 30)) -> dict:
+    """Real campaigns scored four ways, to compare with the backtest's metric: final
+    regret after ``h`` trials (normalized by random search's mean there, as the table)
+    and the normalized-regret AUC over the first ``h`` trials (the backtest's metric:
+    the mean over trials of (best so far - f*) / (f_max - f*), f_max the largest of
+    4096 uniform samples), for each horizon ``h``."""
+    f, d, fstar, _ = nc.FUNCTIONS[name]
+    sd = _noise(name, level)
+    hi = _worst(name)
+    raw = {s.label: [nc._run(name, s, r, budget, sd, seed, trace=True) for r in range(reps)]
+           for s in settings}
+    raw["random search"] = [nc._run(name, None, r, budget, sd, seed, trace=True)
+                            for r in range(reps)]
+    out = {}
+    for h in horizons:
+        fin = {k: np.array([np.minimum.accumulate(t)[h - 1] - fstar for t in v])
+               for k, v in raw.items()}
+        scale = float(fin["random search"].mean()) or 1.0
+        out[f"final_{h}"] = {k: list(v / scale) for k, v in fin.items()}
+        out[f"auc_{h}"] = {k: [float(np.mean((np.minimum.accumulate(t[:h]) - fstar)
+                                             / (hi - fstar))) for t in v]
+                           for k, v in raw.items()}
+    return out
+
+
 def _summary(norm) -> dict:
     base = np.asarray(norm[DEFAULT.label])
     out = {}
@@ -115,30 +145,29 @@ def part_incumbent(reps=10, seed=0, progress=print) -> dict:
 
 def part_truth(cases, reps, seed=0, progress=print) -> dict:
     settings = default_settings(quick=False)
+    labels = {s.label for s in settings}
     out = {}
     for name, level in cases:
         t0 = time.process_time()
-        norm = real_campaigns(name, level, reps, settings, seed)
-        summ = _summary(norm)
+        tr = real_traces(name, level, reps, settings, seed)
+        summ = {m: _summary(v) for m, v in tr.items()}
         key = f"{name}@{level:g}"
-        winners = {k: v for k, v in summ.items() if k in {s.label for s in settings}
-                   and k != DEFAULT.label and v["minus_default"] <= -0.1
-                   and v["p_beats_default"] < 0.05}
+        winners = sorted(k for k, v in summ["final_30"].items() if k in labels
+                         and k != DEFAULT.label and v["minus_default"] <= -0.1
+                         and v["p_beats_default"] < 0.05)
         out[key] = {"function": name, "noise": level, "reps": reps, "summary": summ,
-                    "normalized_regret": norm, "true_winners": sorted(winners),
+                    "values": tr, "true_winners": winners,
                     "cpu_seconds": time.process_time() - t0}
-        progress(f"{key}: default {summ[DEFAULT.label]['mean']:.3f}; " + ", ".join(
-            f"{k} {v['minus_default']:+.3f} (p {v['p_beats_default']:.3g})"
-            for k, v in summ.items() if k != DEFAULT.label))
+        progress(f"{key} ({out[key]['cpu_seconds']:.0f} s cpu): default "
+                 f"{summ['final_30'][DEFAULT.label]['mean']:.3f}; winners {winners}")
+        for m in summ:
+            progress(f"  {m}: " + ", ".join(
+                f"{k} {v['minus_default']:+.3f} (p {v['p_beats_default']:.2g})"
+                for k, v in summ[m].items() if k in labels and k != DEFAULT.label))
     return out
 
 
-def _decision_row(a) -> dict:
-    rec = a.recommendation
-    leader = rec["surrogate"]
-    bt = a.backtest or {}
-    dec = (bt.get("per_surrogate", {}).get(leader) or {}).get("decision") or {}
-    sim = bt.get("simulated") or {}
+def _decision_row(dec, sim, recommended, leader) -> dict:
     rows = {}
     for c in dec.get("comparisons", []):
         rows[c["label"]] = {
@@ -147,20 +176,56 @@ def _decision_row(a) -> dict:
             "by_class": {k: {"mean_difference": v["mean_difference"], "p": v["p_value"],
                              "p_holm": v["p_holm"], "runs": v["runs"]}
                          for k, v in (c.get("by_class") or {}).items()}}
-    return {"surrogate": leader, "recommended": AcquisitionSetting.from_dict(
-                rec["acquisition"]).label,
+    finals = {r["label"]: r["curve"]["median"][-1] for r in sim.get("results", [])
+              if r["surrogate"] == leader and not r["error"] and r["curve"]["median"]}
+    for lab, row in rows.items():  # the simulated runs' median final regret (range units)
+        if lab in finals and dec.get("default") in finals:
+            row["median_final_minus_default"] = finals[lab] - finals[dec["default"]]
+    return {"surrogate": leader, "recommended": recommended,
             "chosen_by_test": dec.get("chosen"), "beats_default": dec.get("beats_default"),
             "power_at_0.1": dec.get("power_at_0.1"), "comparisons": rows,
             "simulated_budget": sim.get("budget"), "n_init": sim.get("n_init"),
-            "sim_noise_std": sim.get("noise_std")}
+            "sim_noise_std": sim.get("noise_std"),
+            "sim_median_final": finals}
+
+
+def _assess_row(trials, seed) -> dict:
+    """The product's assessment, as the benchmark runs it."""
+    with threadpool_limits(1):
+        a = assess(trials, seed=seed, quick=True, jobs=1, plan=False)
+    rec = a.recommendation
+    bt = a.backtest or {}
+    dec = (bt.get("per_surrogate", {}).get(rec["surrogate"]) or {}).get("decision") or {}
+    return _decision_row(dec, bt.get("simulated") or {},
+                         AcquisitionSetting.from_dict(rec["acquisition"]).label,
+                         rec["surrogate"])
+
+
+def _backtest_row(trials, seed, budget, n_init, surrogate="gp", **plan_changes) -> dict:
+    """Diagnosis: the product's backtest alone (simulated campaigns, no replay), the
+    full grid, the quick plan with the simulated budget and start size changed."""
+    from advisor.assessment._stages import _quick_model
+    from advisor.backtest import plan_for, run_backtest
+    plan = plan_for(True, sim_max_budget=budget, n_init=n_init, replay=False,
+                    **plan_changes)
+    with threadpool_limits(1):
+        out = run_backtest(trials, [surrogate], default_settings(quick=False), seed=seed,
+                           quick=True, budget=budget, make=_quick_model, plan=plan)
+    dec = out["per_surrogate"][surrogate].get("decision") or {}
+    rec = dec.get("chosen") if dec.get("beats_default") else DEFAULT.label
+    return _decision_row(dec, out.get("simulated") or {}, rec, surrogate)
 
 
 def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> dict:
+    """``variants``: ``benchmark`` (:func:`_assess_row`), ``b30`` (backtest alone with
+    the next campaign's budget, 30 trials, and start, d + 1 points), ``b12`` (the
+    same at the quick plan's 12 trials and d + 1 starts)."""
     cfg = nc.CONFIGS["full"]
     out = {}
     for name, level in cases:
         key = f"{name}@{level:g}"
         sd = _noise(name, level)
+        d = nc.FUNCTIONS[name][1]
         for s in log_seeds:
             log = nc._past_log(name, s, cfg["n_campaigns"], cfg["past_trials"], sd)
             with tempfile.TemporaryDirectory() as tmp:
@@ -169,12 +234,14 @@ def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> di
                 trials = load_trials(path, objective="y", campaign="campaign", order="step")
                 for v in variants:
                     t0 = time.process_time()
-                    kw = dict(seed=s, quick=True, jobs=1, plan=False)
-                    if v == "full_grid_budget30":
-                        kw.update(acquisitions=default_settings(quick=False), budget=30)
-                    with threadpool_limits(1):
-                        a = assess(trials, **kw)
-                    row = _decision_row(a)
+                    if v == "benchmark":
+                        row = _assess_row(trials, s)
+                    elif v == "b30":
+                        row = _backtest_row(trials, s, 30, d + 1)
+                    elif v == "b12":
+                        row = _backtest_row(trials, s, 12, d + 1)
+                    else:
+                        raise SystemExit(f"unknown variant {v}")
                     row["cpu_seconds"] = time.process_time() - t0
                     out.setdefault(key, {}).setdefault(v, {})[str(s)] = row
                     progress(f"{key} seed {s} {v}: {row['recommended']} (power "
@@ -183,7 +250,7 @@ def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> di
                                      f"{cl}:{b['mean_difference']:+.3f},p{b['p']:.2g}"
                                      for cl, b in c["by_class"].items())
                                  for k, c in row["comparisons"].items())
-                             + f"  [{row['cpu_seconds']:.0f} s cpu]")
+                             + f"  [{row['cpu_seconds']:.0f} s cpu]", flush=True)
     return out
 
 
