@@ -2,7 +2,8 @@
 
     python benchmarks/nondefault_wins.py incumbent      # the table's real campaigns, plug-in incumbent
     python benchmarks/nondefault_wins.py truth --cases branin:0.05,levy3:0.05 --reps 30
-    python benchmarks/nondefault_wins.py assess --cases branin:0.05 --log-seeds 0,1,2,3,4
+    python benchmarks/nondefault_wins.py assess --cases levy3:0.05 --log-seeds 0,1,2,3,4 --variants benchmark,b30
+    python benchmarks/nondefault_wins.py summary        # the figures the README quotes
 
 Writes (merges into) ``benchmarks/results/nondefault_wins.json``.
 
@@ -143,8 +144,9 @@ def part_incumbent(reps=10, seed=0, progress=print) -> dict:
     return {"reps": reps, "budget": 30, "noise": nc.NOISE, "functions": out}
 
 
-def part_truth(cases, reps, seed=0, progress=print) -> dict:
-    settings = default_settings(quick=False)
+def part_truth(cases, reps, seed=0, progress=print, only=None, section="truth") -> dict:
+    settings = [s for s in default_settings(quick=False)
+                if only is None or s.label == DEFAULT.label or s.label in only]
     labels = {s.label for s in settings}
     out = {}
     for name, level in cases:
@@ -158,6 +160,7 @@ def part_truth(cases, reps, seed=0, progress=print) -> dict:
         out[key] = {"function": name, "noise": level, "reps": reps, "summary": summ,
                     "values": tr, "true_winners": winners,
                     "cpu_seconds": time.process_time() - t0}
+        _merge(section, {key: out[key]}, key=True)  # each case as it finishes
         progress(f"{key} ({out[key]['cpu_seconds']:.0f} s cpu): default "
                  f"{summ['final_30'][DEFAULT.label]['mean']:.3f}; winners {winners}")
         for m in summ:
@@ -254,6 +257,44 @@ def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> di
     return out
 
 
+def summary(res) -> dict:
+    """The figures the README quotes: for every assessed case and variant, how often the
+    rule picked a setting that truly wins (``truth``), and each true winner's simulated
+    AUC difference per stand-in class, sign agreement and power."""
+    out = {}
+    for key, variants in res.get("assess", {}).items():
+        # a true winner at 20 replicates (truth) or at 40 (truth_40, its own test)
+        winners = set()
+        for sec in ("truth", "truth_40"):
+            winners |= set(res.get(sec, {}).get(key, {}).get("true_winners", []))
+        for var, rows in variants.items():
+            picked = [r["recommended"] for r in rows.values()]
+            per = {}
+            for w in sorted(winners):
+                diffs = [r["comparisons"][w] for r in rows.values() if w in r["comparisons"]]
+                if not diffs:
+                    per[w] = "not in the backtested grid"
+                    continue
+                per[w] = {"seeds": len(diffs),
+                          "mean_auc_difference": float(np.mean([c["mean_difference"]
+                                                                for c in diffs])),
+                          "negative_sign": int(sum(c["mean_difference"] < 0 for c in diffs)),
+                          "by_class_negative_sign": {
+                              cl: int(sum(c["by_class"][cl]["mean_difference"] < 0
+                                          for c in diffs))
+                              for cl in diffs[0]["by_class"]},
+                          "by_class_min_p": {cl: float(min(c["by_class"][cl]["p"]
+                                                           for c in diffs))
+                                             for cl in diffs[0]["by_class"]}}
+            out[f"{key} {var}"] = {
+                "true_winners": sorted(winners), "seeds": len(picked),
+                "picked_a_true_winner": int(sum(p in winners for p in picked)),
+                "picked": picked,
+                "power_at_0.1": [r["power_at_0.1"] for r in rows.values()],
+                "winners_in_backtest": per}
+    return out
+
+
 def _cases(text):
     out = []
     for item in text.split(","):
@@ -273,16 +314,24 @@ def _merge(section, value, key=None):
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("part", choices=["incumbent", "truth", "assess"])
+    ap.add_argument("part", choices=["incumbent", "truth", "assess", "summary"])
     ap.add_argument("--cases", default="branin:0.05")
     ap.add_argument("--reps", type=int, default=30)
     ap.add_argument("--log-seeds", default="0")
     ap.add_argument("--variants", default="benchmark")
+    ap.add_argument("--only", help="truth: settings besides the default, ';'-separated labels")
+    ap.add_argument("--section", default="truth")
     args = ap.parse_args(argv)
-    if args.part == "incumbent":
+    if args.part == "summary":
+        res = json.loads(OUT.read_text())
+        res["summary"] = summary(res)
+        print(json.dumps(res["summary"], indent=1))
+        OUT.write_text(json.dumps(res, indent=1, default=float))
+    elif args.part == "incumbent":
         _merge("incumbent", part_incumbent())
     elif args.part == "truth":
-        _merge("truth", part_truth(_cases(args.cases), args.reps), key=True)
+        part_truth(_cases(args.cases), args.reps, section=args.section,
+                   only=None if not args.only else args.only.split(";"))
     else:
         res = part_assess(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")],
                           args.variants.split(","))
