@@ -90,8 +90,8 @@ if str(ROOT) not in sys.path:
     sys.path.insert(0, str(ROOT))
 
 from advisor import assess, load_trials, make_surrogate  # noqa: E402
-from advisor.acquisition import (AcquisitionSetting, acquisition_values, default_settings,  # noqa: E402
-                                 incumbent)
+from advisor.acquisition import (AcquisitionSetting, acquisition_values,  # noqa: E402
+                                 default_settings, incumbent)
 from advisor.batching import build_batch  # noqa: E402
 from advisor.execution import task_seed  # noqa: E402
 

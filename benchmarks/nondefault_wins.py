@@ -1,9 +1,14 @@
 """Can the acquisition decision recommend a truly better non-default setting?
 
-    python benchmarks/nondefault_wins.py incumbent      # the table's real campaigns, plug-in incumbent
-    python benchmarks/nondefault_wins.py truth --cases branin:0.05,levy3:0.05 --reps 30
-    python benchmarks/nondefault_wins.py assess --cases levy3:0.05 --log-seeds 0,1,2,3,4 --variants benchmark,b30
-    python benchmarks/nondefault_wins.py summary        # the figures the README quotes
+    python benchmarks/nondefault_wins.py incumbent   # the table's campaigns, plug-in incumbent
+    python benchmarks/nondefault_wins.py truth --cases branin:0.05 --reps 30
+    python benchmarks/nondefault_wins.py truth --reps 20 \
+        --cases levy3:0.05,styblinski_tang2:0.05,michalewicz2:0.05
+    python benchmarks/nondefault_wins.py truth --cases levy3:0.05 --reps 40 \
+        --only "UCB beta=4;UCB beta=1" --section truth_40
+    python benchmarks/nondefault_wins.py assess --cases levy3:0.05 \
+        --log-seeds 0,1,2,3,4,5,6,7,8,9 --variants benchmark,b30
+    python benchmarks/nondefault_wins.py summary     # the figures the README quotes
 
 Writes (merges into) ``benchmarks/results/nondefault_wins.json``.
 
