@@ -1,0 +1,351 @@
+"""Can the acquisition decision recommend a truly better non-default setting?
+
+    python benchmarks/nondefault_wins.py incumbent   # the table's campaigns, plug-in incumbent
+    python benchmarks/nondefault_wins.py truth --cases branin:0.05 --reps 30
+    python benchmarks/nondefault_wins.py truth --reps 20 \
+        --cases levy3:0.05,styblinski_tang2:0.05,michalewicz2:0.05
+    python benchmarks/nondefault_wins.py truth --cases levy3:0.05 --reps 40 \
+        --only "UCB beta=4;UCB beta=1" --section truth_40
+    python benchmarks/nondefault_wins.py assess --cases levy3:0.05 \
+        --log-seeds 0,1,2,3,4,5,6,7,8,9 --variants benchmark,b30
+    python benchmarks/nondefault_wins.py summary     # the figures the README quotes
+
+Writes (merges into) ``benchmarks/results/nondefault_wins.json``.
+
+The next-campaign benchmark (``benchmarks/next_campaign.py``) shows the rule is not worse
+than the default (EI, xi = 0.01); this one asks whether it ever picks a non-default that
+truly wins.  Three parts, each a section of the results file:
+
+* ``incumbent``: the table's real campaigns rerun with the product's incumbent (the
+  lowest posterior mean at the evaluated points, :func:`advisor.acquisition.incumbent`)
+  instead of the lowest noisy observation, same size as the table (10 replicates, 30
+  trials), against the table's numbers.
+* ``truth``: real next campaigns (the benchmark's own loop, ``next_campaign._run``)
+  of every setting of the full grid against the default, ``--reps`` paired replicates;
+  mean normalized-regret difference (setting - default; random search = 1) and the
+  one-sided Wilcoxon p of "the setting's final regret is lower" (scipy, no multiplicity
+  correction: this is the ground truth, one question per setting).  A case is a
+  function and a noise level (times the function's standard deviation over its domain).
+* ``assess``: for each case and past-log seed, the product's assessment of the past
+  logs (as the benchmark runs it: quick, the quick grid, budget from the logs) and, as
+  a diagnosis, the same with the full grid and the next campaign's budget (30 trials):
+  per setting the simulated mean AUC difference (setting - default), the p-values
+  overall and per stand-in class, the decision and ``power_at_0.1``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from scipy import stats
+from threadpoolctl import threadpool_limits
+
+ROOT = Path(__file__).resolve().parent.parent
+if str(ROOT) not in sys.path:
+    sys.path.insert(0, str(ROOT))
+
+from advisor import assess, load_trials  # noqa: E402
+from advisor.acquisition import AcquisitionSetting, default_settings  # noqa: E402
+from benchmarks import next_campaign as nc  # noqa: E402
+
+OUT = ROOT / "benchmarks" / "results" / "nondefault_wins.json"
+DEFAULT = nc.DEFAULT
+
+
+def _p_less(a, b) -> float:
+    d = np.asarray(a, float) - np.asarray(b, float)
+    if np.all(d == 0):
+        return 1.0
+    return float(stats.wilcoxon(d, alternative="less").pvalue)
+
+
+def _noise(name, level):
+    return level / nc.NOISE * nc._noise_sd(name)
+
+
+def real_campaigns(name, level, reps, settings, seed=0, incumbent_rule="plug-in",
+                   budget=30, baselines=True) -> dict:
+    """Final regrets of real next campaigns, normalized by random search's mean."""
+    sd = _noise(name, level)
+    reg = {s.label: [nc._run(name, s, r, budget, sd, seed, incumbent_rule=incumbent_rule)
+                     for r in range(reps)] for s in settings}
+    reg["random search"] = [nc._run(name, None, r, budget, sd, seed) for r in range(reps)]
+    if baselines:
+        reg["grid search"] = [nc._grid_run(name, r, budget, seed) for r in range(reps)]
+    scale = float(np.mean(reg["random search"])) or 1.0
+    return {k: list(np.asarray(v) / scale) for k, v in reg.items()}
+
+
+def _worst(name) -> float:
+    f, d, _, _ = nc.FUNCTIONS[name]
+    return float(f(np.random.default_rng(7).random((4096, d))).max())
+
+
+def real_traces(name, level, reps, settings, seed=0, budget=30, horizons=(12, 30)) -> dict:
+    """Real campaigns scored four ways, to compare with the backtest's metric: final
+    regret after ``h`` trials (normalized by random search's mean there, as the table)
+    and the normalized-regret AUC over the first ``h`` trials (the backtest's metric:
+    the mean over trials of (best so far - f*) / (f_max - f*), f_max the largest of
+    4096 uniform samples), for each horizon ``h``."""
+    f, d, fstar, _ = nc.FUNCTIONS[name]
+    sd = _noise(name, level)
+    hi = _worst(name)
+    raw = {s.label: [nc._run(name, s, r, budget, sd, seed, trace=True) for r in range(reps)]
+           for s in settings}
+    raw["random search"] = [nc._run(name, None, r, budget, sd, seed, trace=True)
+                            for r in range(reps)]
+    out = {}
+    for h in horizons:
+        fin = {k: np.array([np.minimum.accumulate(t)[h - 1] - fstar for t in v])
+               for k, v in raw.items()}
+        scale = float(fin["random search"].mean()) or 1.0
+        out[f"final_{h}"] = {k: list(v / scale) for k, v in fin.items()}
+        out[f"auc_{h}"] = {k: [float(np.mean((np.minimum.accumulate(t[:h]) - fstar)
+                                             / (hi - fstar))) for t in v]
+                           for k, v in raw.items()}
+    return out
+
+
+def _summary(norm) -> dict:
+    base = np.asarray(norm[DEFAULT.label])
+    out = {}
+    for k, v in norm.items():
+        v = np.asarray(v)
+        out[k] = {"mean": float(v.mean()),
+                  "minus_default": float((v - base).mean()),
+                  "se_minus_default": float((v - base).std(ddof=1) / np.sqrt(len(v))),
+                  "p_beats_default": _p_less(v, base) if k != DEFAULT.label else None}
+    return out
+
+
+def part_incumbent(reps=10, seed=0, progress=print) -> dict:
+    old = json.loads((ROOT / "benchmarks" / "results" / "next_campaign.json").read_text())
+    settings = default_settings(quick=False)
+    out = {}
+    for name in nc.TABLE_FUNCTIONS:
+        t0 = time.process_time()
+        norm = real_campaigns(name, nc.NOISE, reps, settings, seed)
+        means = {k: float(np.mean(v)) for k, v in norm.items()}
+        old_means = old["functions"][name]["mean_normalized_regret"]
+        arms = [s.label for s in settings]
+        best = min(arms, key=means.get)
+        out[name] = {"mean_normalized_regret": means, "normalized_regret": norm,
+                     "best_setting": best, "default": means[DEFAULT.label],
+                     "old_mean_normalized_regret": old_means,
+                     "old_best_setting": old["functions"][name]["best_setting"],
+                     "p_default_new_vs_old": None, "cpu_seconds": time.process_time() - t0}
+        d_old = np.asarray(old["functions"][name]["normalized_regret"][DEFAULT.label])
+        # paired by replicate (same starts, candidates and noise); old normalized by the
+        # old random-search mean, which the incumbent does not touch
+        out[name]["p_default_new_vs_old"] = _p_less(norm[DEFAULT.label], d_old)
+        progress(f"{name}: default {old_means[DEFAULT.label]:.3f} -> {means[DEFAULT.label]:.3f}; "
+                 f"best {out[name]['old_best_setting']} -> {best} {means[best]:.3f}")
+    return {"reps": reps, "budget": 30, "noise": nc.NOISE, "functions": out}
+
+
+def part_truth(cases, reps, seed=0, progress=print, only=None, section="truth") -> dict:
+    settings = [s for s in default_settings(quick=False)
+                if only is None or s.label == DEFAULT.label or s.label in only]
+    labels = {s.label for s in settings}
+    out = {}
+    for name, level in cases:
+        t0 = time.process_time()
+        tr = real_traces(name, level, reps, settings, seed)
+        summ = {m: _summary(v) for m, v in tr.items()}
+        key = f"{name}@{level:g}"
+        winners = sorted(k for k, v in summ["final_30"].items() if k in labels
+                         and k != DEFAULT.label and v["minus_default"] <= -0.1
+                         and v["p_beats_default"] < 0.05)
+        out[key] = {"function": name, "noise": level, "reps": reps, "summary": summ,
+                    "values": tr, "true_winners": winners,
+                    "cpu_seconds": time.process_time() - t0}
+        _merge(section, {key: out[key]}, key=True)  # each case as it finishes
+        progress(f"{key} ({out[key]['cpu_seconds']:.0f} s cpu): default "
+                 f"{summ['final_30'][DEFAULT.label]['mean']:.3f}; winners {winners}")
+        for m in summ:
+            progress(f"  {m}: " + ", ".join(
+                f"{k} {v['minus_default']:+.3f} (p {v['p_beats_default']:.2g})"
+                for k, v in summ[m].items() if k in labels and k != DEFAULT.label))
+    return out
+
+
+def _decision_row(dec, sim, recommended, leader) -> dict:
+    rows = {}
+    for c in dec.get("comparisons", []):
+        rows[c["label"]] = {
+            "mean_difference": c["mean_difference"], "p": c["p_value"],
+            "p_holm": c["p_holm"], "significant": c["significant"],
+            "by_class": {k: {"mean_difference": v["mean_difference"], "p": v["p_value"],
+                             "p_holm": v["p_holm"], "runs": v["runs"]}
+                         for k, v in (c.get("by_class") or {}).items()}}
+    finals = {r["label"]: r["curve"]["median"][-1] for r in sim.get("results", [])
+              if r["surrogate"] == leader and not r["error"] and r["curve"]["median"]}
+    for lab, row in rows.items():  # the simulated runs' median final regret (range units)
+        if lab in finals and dec.get("default") in finals:
+            row["median_final_minus_default"] = finals[lab] - finals[dec["default"]]
+    return {"surrogate": leader, "recommended": recommended,
+            "chosen_by_test": dec.get("chosen"), "beats_default": dec.get("beats_default"),
+            "power_at_0.1": dec.get("power_at_0.1"), "comparisons": rows,
+            "simulated_budget": sim.get("budget"), "n_init": sim.get("n_init"),
+            "sim_noise_std": sim.get("noise_std"),
+            "sim_median_final": finals}
+
+
+def _assess_row(trials, seed) -> dict:
+    """The product's assessment, as the benchmark runs it."""
+    with threadpool_limits(1):
+        a = assess(trials, seed=seed, quick=True, jobs=1, plan=False)
+    rec = a.recommendation
+    bt = a.backtest or {}
+    dec = (bt.get("per_surrogate", {}).get(rec["surrogate"]) or {}).get("decision") or {}
+    return _decision_row(dec, bt.get("simulated") or {},
+                         AcquisitionSetting.from_dict(rec["acquisition"]).label,
+                         rec["surrogate"])
+
+
+def _backtest_row(trials, seed, budget, n_init, surrogate="gp", **plan_changes) -> dict:
+    """Diagnosis: the product's backtest alone (simulated campaigns, no replay), the
+    full grid, the quick plan with the simulated budget and start size changed."""
+    from advisor.assessment._stages import _quick_model
+    from advisor.backtest import plan_for, run_backtest
+    plan = plan_for(True, sim_max_budget=budget, n_init=n_init, replay=False,
+                    **plan_changes)
+    with threadpool_limits(1):
+        out = run_backtest(trials, [surrogate], default_settings(quick=False), seed=seed,
+                           quick=True, budget=budget, make=_quick_model, plan=plan)
+    dec = out["per_surrogate"][surrogate].get("decision") or {}
+    rec = dec.get("chosen") if dec.get("beats_default") else DEFAULT.label
+    return _decision_row(dec, out.get("simulated") or {}, rec, surrogate)
+
+
+def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> dict:
+    """``variants``: ``benchmark`` (:func:`_assess_row`), ``b30`` (backtest alone with
+    the next campaign's budget, 30 trials, and start, d + 1 points), ``b12`` (the
+    same at the quick plan's 12 trials and d + 1 starts)."""
+    cfg = nc.CONFIGS["full"]
+    out = {}
+    for name, level in cases:
+        key = f"{name}@{level:g}"
+        sd = _noise(name, level)
+        d = nc.FUNCTIONS[name][1]
+        for s in log_seeds:
+            log = nc._past_log(name, s, cfg["n_campaigns"], cfg["past_trials"], sd)
+            with tempfile.TemporaryDirectory() as tmp:
+                path = Path(tmp) / f"{name}.csv"
+                log.to_csv(path, index=False)
+                trials = load_trials(path, objective="y", campaign="campaign", order="step")
+                for v in variants:
+                    t0 = time.process_time()
+                    if v == "benchmark":
+                        row = _assess_row(trials, s)
+                    elif v == "b30":
+                        row = _backtest_row(trials, s, 30, d + 1)
+                    elif v == "b12":
+                        row = _backtest_row(trials, s, 12, d + 1)
+                    else:
+                        raise SystemExit(f"unknown variant {v}")
+                    row["cpu_seconds"] = time.process_time() - t0
+                    out.setdefault(key, {}).setdefault(v, {})[str(s)] = row
+                    progress(f"{key} seed {s} {v}: {row['recommended']} (power "
+                             f"{row['power_at_0.1']}); " + ", ".join(
+                                 f"{k} {c['mean_difference']:+.3f} " + "/".join(
+                                     f"{cl}:{b['mean_difference']:+.3f},p{b['p']:.2g}"
+                                     for cl, b in c["by_class"].items())
+                                 for k, c in row["comparisons"].items())
+                             + f"  [{row['cpu_seconds']:.0f} s cpu]", flush=True)
+    return out
+
+
+def summary(res) -> dict:
+    """The figures the README quotes: for every assessed case and variant, how often the
+    rule picked a setting that truly wins (``truth``), and each true winner's simulated
+    AUC difference per stand-in class, sign agreement and power."""
+    out = {}
+    for key, variants in res.get("assess", {}).items():
+        # a true winner at 20 replicates (truth) or at 40 (truth_40, its own test)
+        winners = set()
+        for sec in ("truth", "truth_40"):
+            winners |= set(res.get(sec, {}).get(key, {}).get("true_winners", []))
+        for var, rows in variants.items():
+            picked = [r["recommended"] for r in rows.values()]
+            per = {}
+            for w in sorted(winners):
+                diffs = [r["comparisons"][w] for r in rows.values() if w in r["comparisons"]]
+                if not diffs:
+                    per[w] = "not in the backtested grid"
+                    continue
+                per[w] = {"seeds": len(diffs),
+                          "mean_auc_difference": float(np.mean([c["mean_difference"]
+                                                                for c in diffs])),
+                          "negative_sign": int(sum(c["mean_difference"] < 0 for c in diffs)),
+                          "by_class_negative_sign": {
+                              cl: int(sum(c["by_class"][cl]["mean_difference"] < 0
+                                          for c in diffs))
+                              for cl in diffs[0]["by_class"]},
+                          "by_class_min_p": {cl: float(min(c["by_class"][cl]["p"]
+                                                           for c in diffs))
+                                             for cl in diffs[0]["by_class"]}}
+            out[f"{key} {var}"] = {
+                "true_winners": sorted(winners), "seeds": len(picked),
+                "picked_a_true_winner": int(sum(p in winners for p in picked)),
+                "picked": picked,
+                "power_at_0.1": [r["power_at_0.1"] for r in rows.values()],
+                "winners_in_backtest": per}
+    return out
+
+
+def _cases(text):
+    out = []
+    for item in text.split(","):
+        n, lv = item.split(":")
+        out.append((n, float(lv)))
+    return out
+
+
+def _merge(section, value, key=None):
+    res = json.loads(OUT.read_text()) if OUT.exists() else {}
+    if key is None:
+        res[section] = value
+    else:
+        res.setdefault(section, {}).update(value)
+    OUT.write_text(json.dumps(res, indent=1, default=float))
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("part", choices=["incumbent", "truth", "assess", "summary"])
+    ap.add_argument("--cases", default="branin:0.05")
+    ap.add_argument("--reps", type=int, default=30)
+    ap.add_argument("--log-seeds", default="0")
+    ap.add_argument("--variants", default="benchmark")
+    ap.add_argument("--only", help="truth: settings besides the default, ';'-separated labels")
+    ap.add_argument("--section", default="truth")
+    args = ap.parse_args(argv)
+    if args.part == "summary":
+        res = json.loads(OUT.read_text())
+        res["summary"] = summary(res)
+        print(json.dumps(res["summary"], indent=1))
+        OUT.write_text(json.dumps(res, indent=1, default=float))
+    elif args.part == "incumbent":
+        _merge("incumbent", part_incumbent())
+    elif args.part == "truth":
+        part_truth(_cases(args.cases), args.reps, section=args.section,
+                   only=None if not args.only else args.only.split(";"))
+    else:
+        res = part_assess(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")],
+                          args.variants.split(","))
+        old = json.loads(OUT.read_text()).get("assess", {}) if OUT.exists() else {}
+        for k, v in res.items():
+            for var, rows in v.items():
+                old.setdefault(k, {}).setdefault(var, {}).update(rows)
+        _merge("assess", old)
+
+
+if __name__ == "__main__":
+    main()
