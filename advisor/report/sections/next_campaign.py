@@ -229,6 +229,8 @@ def _cost_table(cost) -> list:
                "law is fitted per size regime of the model (for the GP: the exact fit, the "
                "exact fit with its starts on a subset, FITC beyond the exact limit), and the "
                "projection uses only the law of the regime the projected size falls in; a "
-               "negative exponent is shown as n/a, never as a growth rate.", "small")]
+               "negative exponent is shown as n/a, never as a growth rate. Models timed: "
+               + _e(cost.get("scope") or "every model that passed cross-validation")
+               + ".", "small")]
 
 
