@@ -296,7 +296,11 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
                 "default without error, so nothing was tested")
     alpha = decision.get("alpha")
     power = decision.get("power_at_0.1")
-    ptxt = "" if power is None else f"; power to find a 0.1 AUC gain {power:.2f}"
+    # What the power is for, in words: 0.1 of the range averaged over a run is a large
+    # gain; real gains between settings can be far smaller in that unit
+    # (benchmarks/nondefault_wins.py: 0.002 on Levy-3 where UCB truly wins).
+    ptxt = "" if power is None else (f"; power to find a 0.1 AUC gain {power:.2f}, a large "
+                                     "gain: smaller real gains can go unseen")
     n = max((c.get("runs", 0) for c in decision.get("comparisons") or []), default=0)
     where = f"{n} paired {decision.get('experiment')} runs"
     if decision.get("beats_default"):
