@@ -8,6 +8,8 @@
         --only "UCB beta=4;UCB beta=1" --section truth_40
     python benchmarks/nondefault_wins.py assess --cases levy3:0.05 \
         --log-seeds 0,1,2,3,4,5,6,7,8,9 --variants benchmark,b30
+    python benchmarks/nondefault_wins.py unit --cases levy3:0.05,branin:0.2 \
+        --log-seeds 0,1,2,3,4,5,6,7,8,9
     python benchmarks/nondefault_wins.py summary     # the figures the README quotes
 
 Writes (merges into) ``benchmarks/results/nondefault_wins.json``.
@@ -31,6 +33,10 @@ truly wins.  Three parts, each a section of the results file:
   a diagnosis, the same with the full grid and the next campaign's budget (30 trials):
   per setting the simulated mean AUC difference (setting - default), the p-values
   overall and per stand-in class, the decision and ``power_at_0.1``.
+* ``unit``: the backtest alone (as ``b30``) decided twice over the same simulated runs,
+  on the range-normalized AUC the product uses and on final regret normalized by random
+  order's on the same stand-in (the unit of ``truth``): would deciding in the real
+  outcome's unit find the true winner?
 """
 
 from __future__ import annotations
@@ -262,6 +268,69 @@ def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> di
     return out
 
 
+def _unit_decision(out, surrogate, metric) -> dict:
+    """The paired decision on the simulated runs in one of two units: ``auc`` (what the
+    product decides on) or ``final`` (each run's final regret divided by random order's
+    mean final regret on the same stand-in: the real outcome's unit)."""
+    from advisor.backtest import paired_decision
+
+    sim = out["simulated"]
+    cls = {f["id"]: f.get("class") for f in sim["functions"]}
+    rnd = sim["random"]["per_unit_mean_final_regret"]
+    values = {}
+    for r in sim["results"]:
+        if r["surrogate"] != surrogate or r["error"]:
+            continue
+        values[r["label"]] = {
+            (run["unit"], run["seed_index"]):
+                run["auc"] if metric == "auc" else
+                (run["final_regret"] / rnd[run["unit"]] if rnd[run["unit"]] > 0 else 0.0)
+            for run in r["runs"]}
+    strata = {k: cls[k[0]] for v in values.values() for k in v}
+    dec = paired_decision(values, DEFAULT.label, strata=strata)
+    return {"chosen": dec["chosen"], "comparisons": {
+        c["label"]: {"mean_difference": c["mean_difference"], "p": c["p_value"],
+                     "p_holm": c["p_holm"],
+                     "by_class": {k: {"mean_difference": b["mean_difference"],
+                                      "p": b["p_value"]}
+                                  for k, b in (c.get("by_class") or {}).items()}}
+        for c in dec["comparisons"]}}
+
+
+def part_unit(cases, log_seeds, budget=30, progress=print) -> dict:
+    """Would deciding in the real outcome's unit find the true winner?  The backtest
+    alone (GP, the full grid, ``budget`` trials from d + 1 starts, as ``b30``) on each
+    past log, decided twice over the same runs: on range-normalized AUC and on final
+    regret normalized by random order's on the same stand-in."""
+    from advisor.assessment._stages import _quick_model
+    from advisor.backtest import plan_for, run_backtest
+
+    cfg = nc.CONFIGS["full"]
+    out = {}
+    for name, level in cases:
+        key = f"{name}@{level:g}"
+        sd = _noise(name, level)
+        d = nc.FUNCTIONS[name][1]
+        for s in log_seeds:
+            log = nc._past_log(name, s, cfg["n_campaigns"], cfg["past_trials"], sd)
+            with tempfile.TemporaryDirectory() as tmp:
+                path = Path(tmp) / f"{name}.csv"
+                log.to_csv(path, index=False)
+                trials = load_trials(path, objective="y", campaign="campaign", order="step")
+                plan = plan_for(True, sim_max_budget=budget, n_init=d + 1, replay=False)
+                t0 = time.process_time()
+                with threadpool_limits(1):
+                    bt = run_backtest(trials, ["gp"], default_settings(quick=False), seed=s,
+                                      quick=True, budget=budget, make=_quick_model,
+                                      plan=plan)
+                row = {m: _unit_decision(bt, "gp", m) for m in ("auc", "final")}
+                row["cpu_seconds"] = time.process_time() - t0
+                out.setdefault(key, {})[str(s)] = row
+                progress(f"{key} seed {s}: auc -> {row['auc']['chosen']}, final -> "
+                         f"{row['final']['chosen']}", flush=True)
+    return out
+
+
 def summary(res) -> dict:
     """The figures the README quotes: for every assessed case and variant, how often the
     rule picked a setting that truly wins (``truth``), and each true winner's simulated
@@ -319,7 +388,7 @@ def _merge(section, value, key=None):
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("part", choices=["incumbent", "truth", "assess", "summary"])
+    ap.add_argument("part", choices=["incumbent", "truth", "assess", "unit", "summary"])
     ap.add_argument("--cases", default="branin:0.05")
     ap.add_argument("--reps", type=int, default=30)
     ap.add_argument("--log-seeds", default="0")
@@ -334,6 +403,12 @@ def main(argv=None):
         OUT.write_text(json.dumps(res, indent=1, default=float))
     elif args.part == "incumbent":
         _merge("incumbent", part_incumbent())
+    elif args.part == "unit":
+        res = part_unit(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")])
+        old = json.loads(OUT.read_text()).get("unit", {}) if OUT.exists() else {}
+        for k, v in res.items():
+            old.setdefault(k, {}).update(v)
+        _merge("unit", old)
     elif args.part == "truth":
         part_truth(_cases(args.cases), args.reps, section=args.section,
                    only=None if not args.only else args.only.split(";"))

@@ -449,6 +449,14 @@ def test_simulated_campaigns_report_grid_search_and_the_standin_classes(trials):
     assert np.all((med >= 0) & (med <= 1)) and np.all(np.diff(med) <= 1e-12)
     assert {(r["unit"], r["seed_index"]) for r in grid["runs"]} == \
         {(f, s) for f in ("f0", "f1") for s in (0, 1)}
+    # each run's final regret is the last point of its best-so-far curve: in [0, 1] and
+    # never above the curve's mean (a non-increasing curve ends at or below its mean)
+    for run in sim["results"][0]["runs"]:
+        assert 0.0 <= run["final_regret"] <= run["auc"] + 1e-12 <= 1.0 + 1e-12
+    finals = sim["random"]["per_unit_mean_final_regret"]
+    assert set(finals) == {"f0", "f1"}
+    assert all(0.0 <= finals[u] <= sim["random"]["per_unit_mean_auc"][u] + 1e-12
+               for u in finals)
 
 
 def test_fixed_hyperparameter_refit_is_the_exact_posterior_of_those_hyperparameters():

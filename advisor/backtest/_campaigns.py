@@ -109,7 +109,8 @@ Output of :func:`run_backtest` (plain dicts, lists, str, int, float, bool, None)
       campaigns   [{campaign, trials, used: True, n_init, picks, best, worst,
                     threshold_best5, start} | {campaign, trials, used: False, note}]
       results     [RESULT, ...]  one per surrogate x setting, surrogate-major order
-      random      SUMMARY + {label: "random order", per_unit_mean_auc: {campaign: float}}
+      random      SUMMARY + {label: "random order", per_unit_mean_auc: {campaign: float},
+                    per_unit_mean_final_regret: {campaign: float}}
       actual      SUMMARY + {label: "actual order", note}
       paired_test {surrogate: the replay's own paired test against the default,
                    see :func:`._replay.replay_paired_test`}
@@ -122,7 +123,8 @@ Output of :func:`run_backtest` (plain dicts, lists, str, int, float, bool, None)
       functions   [{id: "f0", class, optimum, worst, argmin_is_logged,
                     argmin_is_grid}, ...]
       results     [RESULT, ...]
-      random      SUMMARY + {label, per_unit_mean_auc: {function id: float}}
+      random      SUMMARY + {label, per_unit_mean_auc: {function id: float},
+                    per_unit_mean_final_regret: {function id: float}}
       grid        SUMMARY + {label: "grid search", per_unit_mean_auc, runs: [{unit,
                     seed_index, auc, trials_to_best5, censored}]}  (when plan.grid)
     failures      [{surrogate, acquisition: {name, params}, label, experiment,
@@ -137,7 +139,8 @@ Output of :func:`run_backtest` (plain dicts, lists, str, int, float, bool, None)
     STATS   = {median, q25, q75, mean, sd, n}   (None values when n == 0)
     RESULT  = SUMMARY + {surrogate, acquisition: {name, params}, label,
                          error: str | None, draws: "joint" | "independent" | None,
-                         runs: [{unit, seed_index, auc, trials_to_best5, censored,
+                         runs: [{unit, seed_index, auc, final_regret (the
+                                 curve's last value), trials_to_best5, censored,
                                  picked_lines (replay only: file lines in run order,
                                  start included)}]}
     CHOICE  = see :func:`choose_setting`
@@ -297,6 +300,7 @@ def _collect(part, units, keys, outputs, surrogates, settings, failures, trials)
         seq = list(unit["inits"][s]) + list(res["picked"])
         scored = _score_sequence(unit["y"][seq], unit)
         run = {"unit": uid, "seed_index": s, "auc": scored["auc"],
+               "final_regret": float(scored["curve"][-1]),
                "trials_to_best5": scored["ttb"], "censored": scored["censored"]}
         if unit["lines"] is not None:
             run["picked_lines"] = [int(unit["lines"][i]) for i in seq]
@@ -329,23 +333,26 @@ def _collect(part, units, keys, outputs, surrogates, settings, failures, trials)
 def _baselines(part, units, seed, plan) -> dict:
     """Random order (shuffles after the same start); for the replay, actual order; for
     the simulated campaigns, grid search (one design per start index, see ``_grid``)."""
-    rand_runs, actual_runs, per_unit = [], [], {}
+    rand_runs, actual_runs, per_unit, per_unit_final = [], [], {}, {}
     for uid, unit in units.items():
         y, L = unit["y"], unit["length"]
         r = np.random.default_rng(task_seed(seed, "random-order", part, uid))
         start = list(unit["inits"][0])
         rest = np.setdiff1d(np.arange(len(y)), start)
-        aucs = []
+        aucs, finals = [], []
         for _ in range(plan.random_orders):
             seq = (start + list(r.permutation(rest)))[:L]
             sc = _score_sequence(y[seq], unit)
             rand_runs.append(sc)
             aucs.append(sc["auc"])
+            finals.append(float(sc["curve"][-1]))
         per_unit[uid] = float(np.mean(aucs))
+        per_unit_final[uid] = float(np.mean(finals))
         if part == "replay":
             actual_runs.append(_score_sequence(y[:L], unit))
     out = {"random": dict(_summarize(rand_runs), label="random order",
-                          per_unit_mean_auc=per_unit)}
+                          per_unit_mean_auc=per_unit,
+                          per_unit_mean_final_regret=per_unit_final)}
     grid_runs, grid_scored, grid_unit = [], [], {}
     for uid, unit in units.items():
         for s, rows in enumerate(unit.get("grid") or []):
