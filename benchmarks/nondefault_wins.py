@@ -230,41 +230,46 @@ def _backtest_row(trials, seed, budget, n_init, surrogate="gp", **plan_changes) 
     return _decision_row(dec, out.get("simulated") or {}, rec, surrogate)
 
 
-def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> dict:
-    """``variants``: ``benchmark`` (:func:`_assess_row`), ``b30`` (backtest alone with
-    the next campaign's budget, 30 trials, and start, d + 1 points), ``b12`` (the
-    same at the quick plan's 12 trials and d + 1 starts)."""
+def _past_logs(cases, log_seeds):
+    """(case key, log seed, d, trials) for every case and past-log seed: the benchmark's
+    past log (``next_campaign._past_log``) loaded as the product loads a file."""
     cfg = nc.CONFIGS["full"]
-    out = {}
     for name, level in cases:
-        key = f"{name}@{level:g}"
         sd = _noise(name, level)
-        d = nc.FUNCTIONS[name][1]
         for s in log_seeds:
             log = nc._past_log(name, s, cfg["n_campaigns"], cfg["past_trials"], sd)
             with tempfile.TemporaryDirectory() as tmp:
                 path = Path(tmp) / f"{name}.csv"
                 log.to_csv(path, index=False)
                 trials = load_trials(path, objective="y", campaign="campaign", order="step")
-                for v in variants:
-                    t0 = time.process_time()
-                    if v == "benchmark":
-                        row = _assess_row(trials, s)
-                    elif v == "b30":
-                        row = _backtest_row(trials, s, 30, d + 1)
-                    elif v == "b12":
-                        row = _backtest_row(trials, s, 12, d + 1)
-                    else:
-                        raise SystemExit(f"unknown variant {v}")
-                    row["cpu_seconds"] = time.process_time() - t0
-                    out.setdefault(key, {}).setdefault(v, {})[str(s)] = row
-                    progress(f"{key} seed {s} {v}: {row['recommended']} (power "
-                             f"{row['power_at_0.1']}); " + ", ".join(
-                                 f"{k} {c['mean_difference']:+.3f} " + "/".join(
-                                     f"{cl}:{b['mean_difference']:+.3f},p{b['p']:.2g}"
-                                     for cl, b in c["by_class"].items())
-                                 for k, c in row["comparisons"].items())
-                             + f"  [{row['cpu_seconds']:.0f} s cpu]", flush=True)
+            yield f"{name}@{level:g}", s, nc.FUNCTIONS[name][1], trials
+
+
+def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> dict:
+    """``variants``: ``benchmark`` (:func:`_assess_row`), ``b30`` (backtest alone with
+    the next campaign's budget, 30 trials, and start, d + 1 points), ``b12`` (the
+    same at the quick plan's 12 trials and d + 1 starts)."""
+    out = {}
+    for key, s, d, trials in _past_logs(cases, log_seeds):
+        for v in variants:
+            t0 = time.process_time()
+            if v == "benchmark":
+                row = _assess_row(trials, s)
+            elif v == "b30":
+                row = _backtest_row(trials, s, 30, d + 1)
+            elif v == "b12":
+                row = _backtest_row(trials, s, 12, d + 1)
+            else:
+                raise SystemExit(f"unknown variant {v}")
+            row["cpu_seconds"] = time.process_time() - t0
+            out.setdefault(key, {}).setdefault(v, {})[str(s)] = row
+            progress(f"{key} seed {s} {v}: {row['recommended']} (power "
+                     f"{row['power_at_0.1']}); " + ", ".join(
+                         f"{k} {c['mean_difference']:+.3f} " + "/".join(
+                             f"{cl}:{b['mean_difference']:+.3f},p{b['p']:.2g}"
+                             for cl, b in c["by_class"].items())
+                         for k, c in row["comparisons"].items())
+                     + f"  [{row['cpu_seconds']:.0f} s cpu]", flush=True)
     return out
 
 
@@ -305,29 +310,19 @@ def part_unit(cases, log_seeds, budget=30, progress=print) -> dict:
     from advisor.assessment._stages import _quick_model
     from advisor.backtest import plan_for, run_backtest
 
-    cfg = nc.CONFIGS["full"]
     out = {}
-    for name, level in cases:
-        key = f"{name}@{level:g}"
-        sd = _noise(name, level)
-        d = nc.FUNCTIONS[name][1]
-        for s in log_seeds:
-            log = nc._past_log(name, s, cfg["n_campaigns"], cfg["past_trials"], sd)
-            with tempfile.TemporaryDirectory() as tmp:
-                path = Path(tmp) / f"{name}.csv"
-                log.to_csv(path, index=False)
-                trials = load_trials(path, objective="y", campaign="campaign", order="step")
-                plan = plan_for(True, sim_max_budget=budget, n_init=d + 1, replay=False)
-                t0 = time.process_time()
-                with threadpool_limits(1):
-                    bt = run_backtest(trials, ["gp"], default_settings(quick=False), seed=s,
-                                      quick=True, budget=budget, make=_quick_model,
-                                      plan=plan)
-                row = {m: _unit_decision(bt, "gp", m) for m in ("auc", "final")}
-                row["cpu_seconds"] = time.process_time() - t0
-                out.setdefault(key, {})[str(s)] = row
-                progress(f"{key} seed {s}: auc -> {row['auc']['chosen']}, final -> "
-                         f"{row['final']['chosen']}", flush=True)
+    for key, s, d, trials in _past_logs(cases, log_seeds):
+        plan = plan_for(True, sim_max_budget=budget, n_init=d + 1, replay=False)
+        t0 = time.process_time()
+        with threadpool_limits(1):
+            bt = run_backtest(trials, ["gp"], default_settings(quick=False), seed=s,
+                              quick=True, budget=budget, make=_quick_model,
+                              plan=plan)
+        row = {m: _unit_decision(bt, "gp", m) for m in ("auc", "final")}
+        row["cpu_seconds"] = time.process_time() - t0
+        out.setdefault(key, {})[str(s)] = row
+        progress(f"{key} seed {s}: auc -> {row['auc']['chosen']}, final -> "
+                 f"{row['final']['chosen']}", flush=True)
     return out
 
 
