@@ -2,6 +2,7 @@
 
     python benchmarks/next_campaign.py            # full size, writes benchmarks/results/next_campaign.json
     python benchmarks/next_campaign.py --small    # the small size `make test` runs (tests/test_next_campaign.py)
+    python benchmarks/next_campaign.py --jobs 2   # worker processes; the result does not depend on it
 
 For each published test function with a known minimum:
 
@@ -93,7 +94,7 @@ from advisor import assess, load_trials, make_surrogate  # noqa: E402
 from advisor.acquisition import (AcquisitionSetting, acquisition_values,  # noqa: E402
                                  default_settings, incumbent)
 from advisor.batching import build_batch  # noqa: E402
-from advisor.execution import task_seed  # noqa: E402
+from advisor.execution import Executor, task_seed  # noqa: E402
 
 MARGIN = 0.10
 BATCH_MARGIN = 0.15
@@ -357,11 +358,18 @@ CONFIGS = {
 }
 
 
+def _map_runs(tasks, jobs):
+    """``[_run(*t) for t in tasks]`` in ``jobs`` worker processes (each run seeds itself
+    from its identity, so the result does not depend on ``jobs``)."""
+    return Executor(jobs=int(jobs)).map(_run, tasks, "next campaigns")
+
+
 def run(size="small", seed=0, progress=print, functions=None, partial_dir=None,
-        batch=True) -> dict:
+        batch=True, jobs=1) -> dict:
     """The benchmark at ``size``; ``functions`` a subset (each function's results do not
     depend on the others); ``partial_dir`` keeps each function's result as it finishes
-    (``<name>.json``, merged by ``--merge``); ``batch=False`` skips the batch campaign."""
+    (``<name>.json``, merged by ``--merge``); ``batch=False`` skips the batch campaign;
+    ``jobs`` worker processes for the assessment and the campaigns (same result)."""
     cfg = CONFIGS[size]
     _check_minima()
     settings = default_settings(quick=cfg["grid"] == "quick")
@@ -377,16 +385,18 @@ def run(size="small", seed=0, progress=print, functions=None, partial_dir=None,
                 path = Path(tmp) / f"{name}.csv"
                 log.to_csv(path, index=False)
                 trials = load_trials(path, objective="y", campaign="campaign", order="step")
-                a = assess(trials, seed=seed, quick=True, jobs=1, plan=False,
+                a = assess(trials, seed=seed, quick=True, jobs=jobs, plan=False,
                            surrogates=cfg["surrogates"])
             rec = AcquisitionSetting.from_dict(a.recommendation["acquisition"])
             arms = {s.label: s for s in settings}
             if rec.label not in arms:
                 arms[rec.label] = rec
-            reg = {lab: [_run(name, s, r, cfg["budget"], sd, seed) for r in range(cfg["reps"])]
-                   for lab, s in arms.items()}
-            reg["random search"] = [_run(name, None, r, cfg["budget"], sd, seed)
-                                    for r in range(cfg["reps"])]
+            arms["random search"] = None
+            reps = range(cfg["reps"])
+            done = iter(_map_runs([(name, s, r, cfg["budget"], sd, seed)
+                                   for s in arms.values() for r in reps], jobs))
+            reg = {lab: [next(done) for _ in reps] for lab in arms}
+            del arms["random search"]
             reg["grid search"] = [_grid_run(name, r, cfg["budget"], seed)
                                   for r in range(cfg["reps"])]
             scale = float(np.mean(reg["random search"])) or 1.0
@@ -415,7 +425,7 @@ def run(size="small", seed=0, progress=print, functions=None, partial_dir=None,
                      f"{means[DEFAULT.label]:.3f}, best {best_label} {means[best_label]:.3f}, "
                      f"grid {means['grid search']:.3f}  ({time.perf_counter() - t0:.0f} s)")
     tests = pooled_tests(per_function, seed)
-    batch = batch_campaign(size, seed) if batch else None
+    batch = batch_campaign(size, seed, jobs=jobs) if batch else None
     return {"size": size, "seed": seed, "config": cfg, "settings": [s.label for s in settings],
             "functions": per_function,
             "table": [dict(zip(["function", "recommended", "recommended_regret",
@@ -480,16 +490,17 @@ def merge(size, seed, partial_dir, batch) -> dict:
             "elapsed_seconds": None}
 
 
-def batch_campaign(size="small", seed=0) -> dict:
+def batch_campaign(size="small", seed=0, jobs=1) -> dict:
     """The q = 4 batch campaign against sequential EI and random search (paired)."""
     cfg = CONFIGS[size]
     bf, reps_b = cfg["batch_function"], cfg["batch_reps"]
     budget = cfg.get("batch_budget", cfg["budget"])
     sd = _noise_sd(bf)
     with threadpool_limits(1):
-        seq = [_run(bf, DEFAULT, r, budget, sd, seed) for r in range(reps_b)]
-        bat = [_run(bf, DEFAULT, r, budget, sd, seed, q=4) for r in range(reps_b)]
-        rnd = [_run(bf, None, r, budget, sd, seed) for r in range(reps_b)]
+        out = _map_runs([(bf, s, r, budget, sd, seed, q) for s, q in
+                         ((DEFAULT, 1), (DEFAULT, 4), (None, 1)) for r in range(reps_b)],
+                        jobs)
+    seq, bat, rnd = out[:reps_b], out[reps_b:2 * reps_b], out[2 * reps_b:]
     s = float(np.mean(rnd)) or 1.0
     seq, bat, rnd = (np.asarray(v) / s for v in (seq, bat, rnd))
     ub = _bootstrap_upper(bat - seq, task_seed(seed, "boot", "batch"))
@@ -535,6 +546,8 @@ def main(argv=None):
     ap.add_argument("--partial", help="folder for each function's result; with --merge, "
                     "assemble them (and the batch campaign of --out) into --out")
     ap.add_argument("--merge", action="store_true")
+    ap.add_argument("--jobs", type=int, default=1,
+                    help="worker processes (the result does not depend on it)")
     args = ap.parse_args(argv)
     size = "small" if args.small else "full"
     if args.merge:
@@ -545,15 +558,15 @@ def main(argv=None):
         return
     if args.functions:
         res = run(size, seed=args.seed, functions=args.functions.split(","),
-                  partial_dir=args.partial, batch=False)
+                  partial_dir=args.partial, batch=False, jobs=args.jobs)
         return
     if args.batch_only:
         res = json.loads(Path(args.out).read_text())
-        res["batch"] = batch_campaign(size, seed=args.seed)
+        res["batch"] = batch_campaign(size, seed=args.seed, jobs=args.jobs)
         print(json.dumps(res["batch"], indent=1, default=float))
         Path(args.out).write_text(json.dumps(res, indent=1, default=float))
         return
-    res = run(size, seed=args.seed)
+    res = run(size, seed=args.seed, jobs=args.jobs)
     print(markdown(res))
     print(json.dumps({"tests": res["tests"], "batch": res["batch"]}, indent=1))
     Path(args.out).write_text(json.dumps(res, indent=1, default=float))

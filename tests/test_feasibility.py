@@ -70,16 +70,31 @@ def test_scores_reported_are_sklearn_scores(tmp_path):
     assert len(consts) == 1
 
 
+@pytest.fixture(scope="module")
+def region(tmp_path_factory):
+    """``region(seed)`` -> (the seeded log with the known region, its feasibility
+    assessment): each is computed once and shared by the tests below (the assessment
+    costs seconds; the tests only read it)."""
+    folder = tmp_path_factory.mktemp("region")
+    cache = {}
+
+    def get(seed):
+        if seed not in cache:
+            t = _log_with_region(folder, seed=seed)
+            cache[seed] = (t, F.assess_feasibility(t, seed=seed, quick=True))
+        return cache[seed]
+    return get
+
+
 @pytest.mark.slow
-def test_known_failure_region_is_recovered(tmp_path):
+def test_known_failure_region_is_recovered(region):
     # Over 4 seeded logs: the chosen classifier beats the constant rate, names x1 as
     # the parameter that drives failure, and its held-out reliability error is within
     # 0.10 (stated tolerance: with ~110 held-out trials in 5 bins, a perfectly
     # calibrated model's binned error is about 0.05 from sampling alone).
     hits = 0
     for seed in range(4):
-        t = _log_with_region(tmp_path, seed=seed)
-        out = F.assess_feasibility(t, seed=seed, quick=True)
+        t, out = region(seed)
         chosen = next(r for r in out["classifiers"] if r["classifier"] == out["chosen"])
         ok = (out["beats_constant"] and out["parameters"][0]["name"] == "x1"
               and chosen["reliability_error"] <= 0.10)
@@ -95,15 +110,14 @@ def test_known_failure_region_is_recovered(tmp_path):
 
 
 @pytest.mark.slow
-def test_weighting_keeps_picks_out_of_the_failure_region(tmp_path):
+def test_weighting_keeps_picks_out_of_the_failure_region(region):
     # The objective's minimum (x1 = 0.9) lies inside the failure region (x1 > 0.65).
     # Unweighted EI sends most of its top candidates there; EI x P(success) with the
     # exclusion below MIN_SUCCESS keeps at most 20% of them there.  Stated shares over 3
     # seeded logs (measured: 100% unweighted, 0% weighted on each).
     inside_w, inside_u = [], []
     for seed in range(3):
-        t = _log_with_region(tmp_path, seed=seed)
-        out = F.assess_feasibility(t, seed=seed, quick=True)
+        t, out = region(seed)
         model = out["_model"]
         gp = make_surrogate("gp", seed=0, quick=True).fit(t.features(), t.y)
         rng = np.random.default_rng(seed)
@@ -157,7 +171,7 @@ def test_weighting_rules():
 
 
 @pytest.mark.slow
-def test_weighted_proposals_avoid_the_failure_region(tmp_path):
+def test_weighted_proposals_avoid_the_failure_region(region):
     # The proposals themselves (propose_batch with the chosen failure model), 3 logs x 5
     # proposals: without the weighting most fall inside the region; with it none lies
     # more than 0.05 beyond its edge (the band where the fitted classifier's P(success)
@@ -168,8 +182,8 @@ def test_weighted_proposals_avoid_the_failure_region(tmp_path):
 
     inside_w, inside_u = [], []
     for seed in range(3):
-        t = _log_with_region(tmp_path, seed=seed)
-        model = F.assess_feasibility(t, seed=seed, quick=True)["_model"]
+        t, out = region(seed)
+        model = out["_model"]
         for weighted, into in ((True, inside_w), (False, inside_u)):
             props = propose_batch(t, "gp", "ei:xi=0.01", 5, seed=seed, quick=True,
                                   success_probability=model.success_probability
@@ -201,7 +215,7 @@ def _weighted_and_unweighted(t, model, seed):
 
 
 @pytest.mark.slow
-def test_backtest_weighting_wastes_fewer_trials_in_the_failure_region(tmp_path):
+def test_backtest_weighting_wastes_fewer_trials_in_the_failure_region(region):
     # Simulated campaigns on 3 seeded logs with the known region (x1 > 0.65 fails with
     # probability 0.97), 4 stand-ins x 2 starts each, 10 picks per run: the same runs
     # (same stand-ins, starts, failure outcomes by common random numbers) with EI and with
@@ -212,8 +226,8 @@ def test_backtest_weighting_wastes_fewer_trials_in_the_failure_region(tmp_path):
 
     w_fail, u_fail, w_auc, u_auc = [], [], [], []
     for seed in range(3):
-        t = _log_with_region(tmp_path, seed=seed)
-        model = F.assess_feasibility(t, seed=seed, quick=True)["_model"]
+        t, out = region(seed)
+        model = out["_model"]
         out = _weighted_and_unweighted(t, model, seed)
         (bt_w, res_w), (bt_u, res_u) = out[True], out[False]
         # the failure outcomes and starts are the same in both (paired design)

@@ -28,7 +28,8 @@ def test_test_functions_meet_their_published_minima():
 
 @pytest.fixture(scope="module")
 def small():
-    return _bench().run("small", seed=0, progress=lambda *_: None)
+    # two worker processes (the result does not depend on it; `make test` runs on 2 cores)
+    return _bench().run("small", seed=0, progress=lambda *_: None, jobs=2)
 
 
 # Measured 2026-12-02 at the small size: with the pooled paired test alone, the backtest
