@@ -302,17 +302,21 @@ def _unit_decision(out, surrogate, metric) -> dict:
         for c in dec["comparisons"]}}
 
 
-def part_unit(cases, log_seeds, budget=30, progress=print) -> dict:
+def part_unit(cases, log_seeds, budget=30, progress=print, classes=None,
+              section=None) -> dict:
     """Would deciding in the real outcome's unit find the true winner?  The backtest
     alone (GP, the full grid, ``budget`` trials from d + 1 starts, as ``b30``) on each
     past log, decided twice over the same runs: on range-normalized AUC and on final
-    regret normalized by random order's on the same stand-in."""
+    regret normalized by random order's on the same stand-in.  ``classes``: the
+    stand-in classes (``BacktestPlan.sim_classes``; default the plan's); ``section``:
+    when given, each log's row is merged into that results section as it finishes."""
     from advisor.assessment._stages import _quick_model
     from advisor.backtest import plan_for, run_backtest
 
     out = {}
     for key, s, d, trials in _past_logs(cases, log_seeds):
-        plan = plan_for(True, sim_max_budget=budget, n_init=d + 1, replay=False)
+        plan = plan_for(True, sim_max_budget=budget, n_init=d + 1, replay=False,
+                        **({} if not classes else {"sim_classes": tuple(classes)}))
         t0 = time.process_time()
         with threadpool_limits(1):
             bt = run_backtest(trials, ["gp"], default_settings(quick=False), seed=s,
@@ -321,6 +325,10 @@ def part_unit(cases, log_seeds, budget=30, progress=print) -> dict:
         row = {m: _unit_decision(bt, "gp", m) for m in ("auc", "final")}
         row["cpu_seconds"] = time.process_time() - t0
         out.setdefault(key, {})[str(s)] = row
+        if section:  # each log as it finishes
+            res = json.loads(OUT.read_text()) if OUT.exists() else {}
+            res.setdefault(section, {}).setdefault(key, {})[str(s)] = row
+            OUT.write_text(json.dumps(res, indent=1, default=float))
         progress(f"{key} seed {s}: auc -> {row['auc']['chosen']}, final -> "
                  f"{row['final']['chosen']}", flush=True)
     return out
@@ -389,7 +397,10 @@ def main(argv=None):
     ap.add_argument("--log-seeds", default="0")
     ap.add_argument("--variants", default="benchmark")
     ap.add_argument("--only", help="truth: settings besides the default, ';'-separated labels")
-    ap.add_argument("--section", default="truth")
+    ap.add_argument("--section", default=None,
+                    help="results section to write (default: the part's name)")
+    ap.add_argument("--classes", help="unit: stand-in classes, comma-separated "
+                                      "(default: the plan's, gp,forest)")
     args = ap.parse_args(argv)
     if args.part == "summary":
         res = json.loads(OUT.read_text())
@@ -399,13 +410,12 @@ def main(argv=None):
     elif args.part == "incumbent":
         _merge("incumbent", part_incumbent())
     elif args.part == "unit":
-        res = part_unit(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")])
-        old = json.loads(OUT.read_text()).get("unit", {}) if OUT.exists() else {}
-        for k, v in res.items():
-            old.setdefault(k, {}).update(v)
-        _merge("unit", old)
+        section = args.section or "unit"
+        part_unit(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")],
+                  classes=None if not args.classes else args.classes.split(","),
+                  section=section)
     elif args.part == "truth":
-        part_truth(_cases(args.cases), args.reps, section=args.section,
+        part_truth(_cases(args.cases), args.reps, section=args.section or "truth",
                    only=None if not args.only else args.only.split(";"))
     else:
         res = part_assess(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")],
