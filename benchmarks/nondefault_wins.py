@@ -372,6 +372,65 @@ def summary(res) -> dict:
     return out
 
 
+def standin_summary(res, sections) -> dict:
+    """Per ``unit``-like section (one stand-in construction each) and case: each
+    setting's simulated difference from the default (mean over logs of the per-log mean
+    over runs, and its se over logs) in both units beside the truth (``truth``'s final
+    regret at 30 trials), the rank correlation of the eight simulated means with the
+    truth's, how many logs give each true winner the right sign, and the decision's
+    non-default picks in each unit (on a case with no true winner these are false
+    picks).  For the mixed ``unit`` section each class is also summarized alone
+    (``unit/gp``, ``unit/forest``: its runs' share of each log's comparison)."""
+    out = {}
+    for sec in sections:
+        variants = [None] + (["gp", "forest"] if sec == "unit" else [])
+        for cl in variants:
+            name = sec if cl is None else f"{sec}/{cl}"
+            for key, rows in res.get(sec, {}).items():
+                truth = res.get("truth", {}).get(key)
+                if not truth:
+                    continue
+                tr = truth["summary"]["final_30"]
+                labels = [lab for lab in tr if lab not in
+                          (DEFAULT.label, "random search", "grid search")]
+                winners = set()
+                for t in ("truth", "truth_40"):
+                    winners |= set(res.get(t, {}).get(key, {}).get("true_winners", []))
+
+                def diff(row, lab, unit):
+                    c = row[unit]["comparisons"][lab]
+                    return c["mean_difference"] if cl is None else \
+                        c["by_class"][cl]["mean_difference"]
+
+                per = {}
+                for unit in ("final", "auc"):
+                    per[unit] = {lab: np.array([diff(r, lab, unit) for r in rows.values()])
+                                 for lab in labels}
+                sim = {lab: float(v.mean()) for lab, v in per["final"].items()}
+                rho = stats.spearmanr([sim[lab] for lab in labels],
+                                      [tr[lab]["minus_default"] for lab in labels])[0]
+                n = len(rows)
+                out.setdefault(name, {})[key] = {
+                    "logs": n, "true_winners": sorted(winners),
+                    "settings": {lab: {
+                        "truth_final_minus_default": tr[lab]["minus_default"],
+                        "sim_final_minus_default": sim[lab],
+                        "sim_final_se": float(per["final"][lab].std(ddof=1) / np.sqrt(n))
+                        if n > 1 else None,
+                        "sim_auc_minus_default": float(per["auc"][lab].mean())}
+                        for lab in labels},
+                    "spearman_sim_vs_truth": float(rho),
+                    "right_sign_logs": {w: int((per["final"][w] < 0).sum())
+                                        for w in sorted(winners)},
+                    "picks_final": [r["final"]["chosen"] for r in rows.values()
+                                    if r["final"]["chosen"] not in (None, DEFAULT.label)],
+                    "picks_auc": [r["auc"]["chosen"] for r in rows.values()
+                                  if r["auc"]["chosen"] not in (None, DEFAULT.label)],
+                    "cpu_seconds_per_log": float(np.mean([r["cpu_seconds"]
+                                                          for r in rows.values()]))}
+    return out
+
+
 def _cases(text):
     out = []
     for item in text.split(","):
@@ -391,7 +450,8 @@ def _merge(section, value, key=None):
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("part", choices=["incumbent", "truth", "assess", "unit", "summary"])
+    ap.add_argument("part", choices=["incumbent", "truth", "assess", "unit", "summary",
+                                     "standins"])
     ap.add_argument("--cases", default="branin:0.05")
     ap.add_argument("--reps", type=int, default=30)
     ap.add_argument("--log-seeds", default="0")
@@ -399,6 +459,7 @@ def main(argv=None):
     ap.add_argument("--only", help="truth: settings besides the default, ';'-separated labels")
     ap.add_argument("--section", default=None,
                     help="results section to write (default: the part's name)")
+    ap.add_argument("--sections", help="standins: the unit-like sections to summarize")
     ap.add_argument("--classes", help="unit: stand-in classes, comma-separated "
                                       "(default: the plan's, gp,forest)")
     args = ap.parse_args(argv)
@@ -406,6 +467,20 @@ def main(argv=None):
         res = json.loads(OUT.read_text())
         res["summary"] = summary(res)
         print(json.dumps(res["summary"], indent=1))
+        OUT.write_text(json.dumps(res, indent=1, default=float))
+    elif args.part == "standins":
+        res = json.loads(OUT.read_text())
+        secs = (args.sections or "unit,unit_gp_hyper,unit_gp_sum,unit_gp_sum_ml").split(",")
+        summ = standin_summary(res, secs)
+        for name, cases in summ.items():
+            for key, v in cases.items():
+                print(f"{name} {key} ({v['logs']} logs): rho {v['spearman_sim_vs_truth']:+.2f}"
+                      f", right sign {v['right_sign_logs']}, picks final {v['picks_final']}"
+                      f" auc {v['picks_auc']}")
+                print("   " + ", ".join(f"{k} {s['sim_final_minus_default']:+.2f}"
+                                        f"/{s['truth_final_minus_default']:+.2f}"
+                                        for k, s in v["settings"].items()))
+        res["standins_summary"] = summ
         OUT.write_text(json.dumps(res, indent=1, default=float))
     elif args.part == "incumbent":
         _merge("incumbent", part_incumbent())

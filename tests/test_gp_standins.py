@@ -109,3 +109,39 @@ def test_conditioned_draws_match_scikit_learns_posterior():
     assert np.all(np.abs(F.mean(0) - mean) < 5 * sd / math.sqrt(4000))
     assert np.allclose(F.var(0), np.diag(cov), rtol=0.10)
     assert np.corrcoef(F.T)[0, 1] == pytest.approx(cov[0, 1] / sd[0] / sd[1], abs=0.05)
+
+
+@pytest.fixture(scope="module")
+def trials(tmp_path_factory):
+    """2 campaigns x 15 trials of Branin (Surjanovic & Bingham 2013) with small noise."""
+    from advisor.logs import load_trials
+
+    rng = np.random.default_rng(11)
+    rows = []
+    for c in range(2):
+        for run in range(1, 16):
+            x1, x2 = rng.uniform(-5, 10), rng.uniform(0, 15)
+            y = ((x2 - 5.1 / (4 * math.pi ** 2) * x1 ** 2 + 5 / math.pi * x1 - 6) ** 2
+                 + 10 * (1 - 1 / (8 * math.pi)) * math.cos(x1) + 10
+                 + rng.standard_normal())
+            rows.append({"c": c, "run": run, "x1": x1, "x2": x2, "y": y})
+    path = tmp_path_factory.mktemp("logs") / "branin.csv"
+    pd.DataFrame(rows).to_csv(path, index=False)
+    return load_trials(path, objective="y", campaign="c", order="run")
+
+
+@pytest.mark.parametrize("cls", ["gp_hyper", "gp_sum", "gp_sum_ml"])
+def test_gp_variant_classes_draw_joint_functions_with_the_logs_noise(trials, cls):
+    from advisor.backtest import mixed_standins
+    from advisor.execution import task_seed
+
+    st = mixed_standins(trials, n_functions=3, n_extra=40, seed=2, quick=True,
+                        classes=(cls, "forest"))
+    assert st.classes == [cls] * 2 + ["forest"] and not st.failed
+    assert st.values.shape == (3, 40) and np.all(np.isfinite(st.values))
+    # two draws of one class differ (joint draws, not the posterior mean twice)
+    assert np.abs(st.values[0] - st.values[1]).max() > 1e-6
+    # the observation noise is the project GP's fitted noise (the log's), as for 'gp'
+    gp = make_surrogate("gp", seed=task_seed(2, "standin-model", cls), quick=True)
+    gp.fit(trials.space.encode(trials.used[trials.params], "onehot"), trials.y)
+    assert st.noise_std == pytest.approx(gp.noise_std_, rel=1e-9)
