@@ -10,6 +10,9 @@
         --log-seeds 0,1,2,3,4,5,6,7,8,9 --variants benchmark,b30
     python benchmarks/nondefault_wins.py unit --cases levy3:0.05,branin:0.2 \
         --log-seeds 0,1,2,3,4,5,6,7,8,9
+    python benchmarks/nondefault_wins.py unit --classes gp_sum_ml --section unit_gp_sum_ml \
+        --cases levy3:0.05,branin:0.2,michalewicz2:0.05,branin:0.05 --log-seeds 0,1,2
+    python benchmarks/nondefault_wins.py standins    # the stand-in constructions vs truth
     python benchmarks/nondefault_wins.py summary     # the figures the README quotes
 
 Writes (merges into) ``benchmarks/results/nondefault_wins.json``.
@@ -36,7 +39,13 @@ truly wins.  Three parts, each a section of the results file:
 * ``unit``: the backtest alone (as ``b30``) decided twice over the same simulated runs,
   on the range-normalized AUC the product uses and on final regret normalized by random
   order's on the same stand-in (the unit of ``truth``): would deciding in the real
-  outcome's unit find the true winner?
+  outcome's unit find the true winner?  ``--classes`` chooses the stand-in classes
+  (``BacktestPlan.sim_classes``, e.g. the opt-in GP variants of
+  ``advisor/backtest/_gp_standins.py``) and ``--section`` the results section (one per
+  construction: ``unit`` is the default gp+forest, ``unit_gp_hyper``, ``unit_gp_sum``,
+  ``unit_gp_sum_ml`` one class each); each log's row is saved as it finishes.
+* ``standins`` (no runs): :func:`standin_summary` of the unit-like sections against
+  ``truth``, written to ``standins_summary``.
 """
 
 from __future__ import annotations

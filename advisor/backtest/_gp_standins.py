@@ -4,7 +4,7 @@ classes of :mod:`._standins` (names in ``GP_STANDIN_CLASSES``).
 Why.  The past logs usually come from a local optimizer, so the data sit in clusters; a
 GP fitted there by type-II maximum likelihood has one set of length scales and its
 posterior draws vary little away from the clusters, while the real objective may not
-(``benchmarks/nondefault_wins.py``, part ``unit``).  Two constructions:
+(``benchmarks/nondefault_wins.py``, part ``unit``).  Three constructions:
 
 ``gp_hyper`` -- hyperparameters marginalized.  Each stand-in is a joint posterior draw of
 the project GP (Matérn-5/2 ARD, fitted noise) whose hyperparameters are themselves a
@@ -24,12 +24,30 @@ every ``HYPER_THIN`` sweeps (our choices).
 ``gp_sum`` -- a short-scale component added.  The fitted kernel plus a Matérn-5/2 of
 the same signal variance and ``SUM_SCALE_RATIO`` times the fitted length scales
 (``k = k_fit + k_short``, a sum of covariance functions is a covariance function,
-[RW2006, §4.2.4]), conditioned on the log with the fitted noise: the draws agree with
-the log where it has data and vary on a shorter scale away from it.  Ratio and variance
-are our choices, fixed before any measurement (not tuned on the benchmark's cases).
+[RW2006, §4.2.4], section from memory), conditioned on the log with the fitted noise:
+the draws agree with the log where it has data and vary on a shorter scale away from
+it.  Ratio and variance are our choices, fixed before any measurement (not tuned on
+the benchmark's cases).
 
-Both need the project ``MaternGP`` (``length_scales_``, ``log_params_``); another
-sampler raises ``ValueError`` and the class's share goes to the classes that work.
+``gp_sum_ml`` -- two components, both fitted.  The kernel is a sum of two Matérn-5/2
+ARD terms, each with its own variance and length scales, plus white noise
+(``s1^2 k(l1) + s2^2 k(l2) + sigma_n^2 [x = x']``), every hyperparameter fitted by type-II
+maximum likelihood (scikit-learn's ``GaussianProcessRegressor``, L-BFGS-B, the first term
+started at the project GP's fit, the second at ``TWO_COMPONENT_START`` times its length
+scales, ``TWO_COMPONENT_RESTARTS`` random restarts; bounds those of ``gp.BOUNDS``), on the
+GP's standardized data; the stand-ins are its joint latent posterior draws.  Sums of
+kernels fitted by maximum likelihood are how [RW2006, §5.4.3, from memory] compose
+structure; with ARD each term can take a different subset of the inputs, a two-term
+version of the additive kernels of Duvenaud, Nickisch & Rasmussen (2011, "Additive
+Gaussian processes", NeurIPS).  On the benchmark's past logs (4 campaigns x 20 trials of a
+local optimizer) the sum raised the log marginal likelihood by 26-76 nats on Levy-3 and
+Michalewicz-2 (each term took mostly one input) and by 0.4-1 nat on Branin (our
+measurements, 2 logs each), so this is a better model of such logs, not a knob.
+
+All three need the project ``MaternGP`` (``length_scales_``, ``log_params_``); another
+sampler raises ``ValueError`` and the class's share goes to the classes that work.  The
+observation noise of the simulated campaigns stays the project GP's fitted noise (the
+log's, as for the ``gp`` class).
 
 References
 ----------
