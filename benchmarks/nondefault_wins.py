@@ -381,6 +381,52 @@ def summary(res) -> dict:
     return out
 
 
+def part_geometry(cases, log_seeds, classes, n_functions=8, radius=0.1,
+                  progress=print) -> dict:
+    """Where each stand-in construction puts its minimum, against the real function,
+    on the same candidate set (200 fresh samples of the space the product infers from
+    the log, the quick plan's): the unit-cube distance from the log's best trial to the function's minimizer over the
+    set, and the gap between the best candidate within ``radius`` of the log's best
+    trial and the set's minimum, as a fraction of the function's range on the set
+    (0: the log already sits at the optimum's basin).  No campaigns run."""
+    from advisor.assessment._stages import _quick_model
+    from advisor.backtest import mixed_standins
+
+    out = {}
+    for key, s, d, trials in _past_logs(cases, log_seeds):
+        name = key.split("@")[0]
+        f = nc.FUNCTIONS[name][0]
+        # the benchmark's functions take the unit cube, the logs' raw units
+        used = trials.used[trials.params].to_numpy(float)
+        best = used[int(np.argmin(trials.y))]
+        row = {}
+        for cls in ["real"] + list(classes):
+            st = mixed_standins(trials, 1 if cls == "real" else n_functions, 200, s,
+                                make=_quick_model, classes=("gp",) if cls == "real"
+                                else (cls,), quick=True)
+            F = st.frame.to_numpy(float)
+            values = f(F)[None] if cls == "real" else st.values
+            near = np.linalg.norm(F - best, axis=1) <= radius
+            dist, gap = [], []
+            for v in values:
+                dist.append(float(np.linalg.norm(F[int(np.argmin(v))] - best)))
+                rng_ = float(v.max() - v.min()) or 1.0
+                gap.append(float((v[near].min() - v.min()) / rng_) if near.any()
+                           else None)
+            row[cls] = {"distance": float(np.mean(dist)),
+                        "gap": float(np.mean([g for g in gap if g is not None]))
+                        if any(g is not None for g in gap) else None}
+        out.setdefault(key, {})[str(s)] = row
+        progress(f"{key} seed {s}: " + ", ".join(
+            f"{c} dist {v['distance']:.2f} gap {v['gap']}" for c, v in row.items()))
+    agg = {}
+    for key, rows in out.items():
+        agg[key] = {c: {m: float(np.mean([r[c][m] for r in rows.values()
+                                          if r[c][m] is not None]))
+                        for m in ("distance", "gap")} for c in ["real"] + list(classes)}
+    return {"radius": radius, "logs": out, "mean": agg}
+
+
 def standin_summary(res, sections) -> dict:
     """Per ``unit``-like section (one stand-in construction each) and case: each
     setting's simulated difference from the default (mean over logs of the per-log mean
@@ -460,7 +506,7 @@ def _merge(section, value, key=None):
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("part", choices=["incumbent", "truth", "assess", "unit", "summary",
-                                     "standins"])
+                                     "standins", "geometry"])
     ap.add_argument("--cases", default="branin:0.05")
     ap.add_argument("--reps", type=int, default=30)
     ap.add_argument("--log-seeds", default="0")
@@ -491,6 +537,11 @@ def main(argv=None):
                                         for k, s in v["settings"].items()))
         res["standins_summary"] = summ
         OUT.write_text(json.dumps(res, indent=1, default=float))
+    elif args.part == "geometry":
+        classes = (args.classes or "gp,forest,gp_hyper,gp_sum,gp_sum_ml").split(",")
+        _merge(args.section or "standins_geometry",
+               part_geometry(_cases(args.cases),
+                             [int(s) for s in args.log_seeds.split(",")], classes))
     elif args.part == "incumbent":
         _merge("incumbent", part_incumbent())
     elif args.part == "unit":
