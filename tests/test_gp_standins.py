@@ -132,6 +132,8 @@ def trials(tmp_path_factory):
 
 @pytest.mark.parametrize("cls", ["gp_hyper", "gp_sum", "gp_sum_ml"])
 def test_gp_variant_classes_draw_joint_functions_with_the_logs_noise(trials, cls):
+    # integration through mixed_standins (the draws' law is checked above against
+    # scipy / scikit-learn / quadrature)
     from advisor.backtest import mixed_standins
     from advisor.execution import task_seed
 

@@ -63,7 +63,8 @@ import numpy as np
 
 from ..surrogates.gp import BOUNDS, MaternGP, matern52, negative_log_marginal_likelihood
 
-__all__ = ["GP_STANDIN_CLASSES", "hyperposterior_samples", "slice_sample",
+__all__ = ["GP_STANDIN_CLASSES", "hyperposterior_samples", "slice_sample", "hyper_draws",
+           "fit_two_component", "two_component_draws",
            "sum_kernel_draws", "HYPER_BURN_IN", "HYPER_THIN", "SUM_SCALE_RATIO"]
 
 #: Stand-in class names handled here (``BacktestPlan.sim_classes`` vocabulary).

@@ -11,6 +11,11 @@ One tree alone is piecewise constant with broad plateaus (its minimum is shared 
 every candidate in one leaf, which makes "finding" it trivial); the mean of a few trees
 is a finer staircase, still a joint function of the candidate set (our choice).
 
+Opt-in classes ``gp_hyper``, ``gp_sum`` and ``gp_sum_ml`` (GP draws with sampled
+hyperparameters or a sum kernel, :mod:`._gp_standins`) can be named in
+``BacktestPlan.sim_classes``; none is a default (measured in
+``benchmarks/nondefault_wins.py``, section ``standins_summary``: no clear gain).
+
 Both are drawn jointly on the same candidate set, so each stand-in's minimum over the
 set is exact.  The observation noise is the GP's fitted noise level (the noise the log
 shows), the same for every class.
