@@ -130,7 +130,7 @@ def trials(tmp_path_factory):
     return load_trials(path, objective="y", campaign="c", order="run")
 
 
-@pytest.mark.parametrize("cls", ["gp_hyper", "gp_sum", "gp_sum_ml"])
+@pytest.mark.parametrize("cls", ["gp_hyper", "gp_sum", "gp_sum_ml", "gp_trend"])
 def test_gp_variant_classes_draw_joint_functions_with_the_logs_noise(trials, cls):
     # integration through mixed_standins (the draws' law is checked above against
     # scipy / scikit-learn / quadrature)

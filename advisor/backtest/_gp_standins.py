@@ -4,7 +4,8 @@ classes of :mod:`._standins` (names in ``GP_STANDIN_CLASSES``).
 Why.  The past logs usually come from a local optimizer, so the data sit in clusters; a
 GP fitted there by type-II maximum likelihood has one set of length scales and its
 posterior draws vary little away from the clusters, while the real objective may not
-(``benchmarks/nondefault_wins.py``, part ``unit``).  Three constructions:
+(``benchmarks/nondefault_wins.py``, part ``unit``).  Three constructions (and an
+exploratory fourth, ``gp_trend``, see :func:`trend_draws`):
 
 ``gp_hyper`` -- hyperparameters marginalized.  Each stand-in is a joint posterior draw of
 the project GP (Matérn-5/2 ARD, fitted noise) whose hyperparameters are themselves a
@@ -44,7 +45,7 @@ local optimizer) the sum raised the log marginal likelihood by 26-76 nats on Lev
 Michalewicz-2 (each term took mostly one input) and by 0.4-1 nat on Branin (our
 measurements, 2 logs each), so this is a better model of such logs, not a knob.
 
-All three need the project ``MaternGP`` (``length_scales_``, ``log_params_``); another
+The first three need the project ``MaternGP`` (``length_scales_``, ``log_params_``); another
 sampler raises ``ValueError`` and the class's share goes to the classes that work.  The
 observation noise of the simulated campaigns stays the project GP's fitted noise (the
 log's, as for the ``gp`` class).
@@ -64,11 +65,11 @@ import numpy as np
 from ..surrogates.gp import BOUNDS, MaternGP, matern52, negative_log_marginal_likelihood
 
 __all__ = ["GP_STANDIN_CLASSES", "hyperposterior_samples", "slice_sample", "hyper_draws",
-           "fit_two_component", "two_component_draws",
+           "fit_two_component", "two_component_draws", "trend_draws",
            "sum_kernel_draws", "HYPER_BURN_IN", "HYPER_THIN", "SUM_SCALE_RATIO"]
 
 #: Stand-in class names handled here (``BacktestPlan.sim_classes`` vocabulary).
-GP_STANDIN_CLASSES = ("gp_hyper", "gp_sum", "gp_sum_ml")
+GP_STANDIN_CLASSES = ("gp_hyper", "gp_sum", "gp_sum_ml", "gp_trend")
 #: Slice-sampling sweeps discarded, and sweeps between kept samples (our choices).
 HYPER_BURN_IN = 20
 HYPER_THIN = 5
@@ -254,3 +255,25 @@ def two_component_draws(model, X, y, Xc, n, rng, seed):
     latent = gpr.kernel_.k1                       # the two Matérn terms, no white noise
     F = _conditioned_draws(latent, Xs, ys, float(gpr.kernel_.k2.noise_level), Zc, n, rng)
     return model.y_mean_ + model.y_scale_ * F
+
+
+def trend_draws(X, y, Xc, n, rng, make, seed):
+    """``gp_trend`` (exploratory): a quadratic trend without interactions (1, x_k, x_k^2
+    on the standardized inputs) fitted by least squares, plus joint latent draws of the
+    project GP fitted to its residuals (explicit basis functions, [RW2006, §2.7], with
+    the coefficients fixed at their least-squares values: their uncertainty is left
+    out).  Away from a clustered log the draws revert to the trend, not to the trials'
+    mean."""
+    X = np.asarray(X, dtype=float)
+    y = np.asarray(y, dtype=float)
+    mu, sd = X.mean(0), X.std(0)
+    sd = np.where(sd > 1e-12, sd, 1.0)
+
+    def basis(A):
+        Z = (np.asarray(A, dtype=float) - mu) / sd
+        return np.hstack([np.ones((len(Z), 1)), Z, Z * Z])
+
+    beta, *_ = np.linalg.lstsq(basis(X), y, rcond=None)
+    gp = make("gp", seed=seed, quick=True)
+    gp.fit(X, y - basis(X) @ beta)
+    return basis(Xc) @ beta + gp.sample_y(Xc, n, rng)

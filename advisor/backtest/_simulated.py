@@ -25,6 +25,8 @@ _CLASS_TEXT = {
     "gp_sum_ml": "posterior draws of a Gaussian process whose kernel is a sum of two "
                  "Matérn-5/2 ARD terms, both fitted by type-II maximum likelihood "
                  "(joint, latent)",
+    "gp_trend": "a quadratic trend (no interactions, least squares) plus joint latent "
+                "posterior draws of a Gaussian process fitted to its residuals",
 }
 
 

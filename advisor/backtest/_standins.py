@@ -11,9 +11,9 @@ One tree alone is piecewise constant with broad plateaus (its minimum is shared 
 every candidate in one leaf, which makes "finding" it trivial); the mean of a few trees
 is a finer staircase, still a joint function of the candidate set (our choice).
 
-Opt-in classes ``gp_hyper``, ``gp_sum`` and ``gp_sum_ml`` (GP draws with sampled
-hyperparameters or a sum kernel, :mod:`._gp_standins`) can be named in
-``BacktestPlan.sim_classes``; none is a default (measured in
+Opt-in classes ``gp_hyper``, ``gp_sum``, ``gp_sum_ml`` and ``gp_trend`` (GP draws
+with sampled hyperparameters, a sum kernel or a quadratic trend,
+:mod:`._gp_standins`) can be named in ``BacktestPlan.sim_classes``; none is a default (measured in
 ``benchmarks/nondefault_wins.py``, section ``standins_summary``: no clear gain).
 
 Both are drawn jointly on the same candidate set, so each stand-in's minimum over the
@@ -32,7 +32,7 @@ import pandas as pd
 from ..execution import task_seed
 from ..surrogates import make_surrogate
 from ._gp_standins import (GP_STANDIN_CLASSES, hyper_draws, sum_kernel_draws,
-                           two_component_draws)
+                           trend_draws, two_component_draws)
 
 __all__ = ["StandIns", "posterior_standins", "mixed_standins", "STANDIN_CLASSES",
            "FOREST_TREES_PER_FUNCTION"]
@@ -110,6 +110,9 @@ def _draw_gp_variant(trials, used, frame, sampler, n, seed, rng, make, quick):
     Xc = trials.space.encode(frame, "onehot")
     if sampler == "gp_hyper":
         values = hyper_draws(model, X, y, Xc, n, rng, make,
+                             task_seed(seed, "standin-model", sampler))
+    elif sampler == "gp_trend":
+        values = trend_draws(X, y, Xc, n, rng, make,
                              task_seed(seed, "standin-model", sampler))
     elif sampler == "gp_sum":
         values = sum_kernel_draws(model, X, y, Xc, n, rng)
