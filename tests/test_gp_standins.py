@@ -147,3 +147,21 @@ def test_gp_variant_classes_draw_joint_functions_with_the_logs_noise(trials, cls
     gp = make_surrogate("gp", seed=task_seed(2, "standin-model", cls), quick=True)
     gp.fit(trials.space.encode(trials.used[trials.params], "onehot"), trials.y)
     assert st.noise_std == pytest.approx(gp.noise_std_, rel=1e-9)
+
+
+def test_trend_draws_extrapolate_a_quadratic_log_by_its_closed_form():
+    from advisor.backtest._gp_standins import trend_draws
+
+    # a noise-free separable quadratic: the least-squares trend is the function itself,
+    # so away from the data (up to a unit outside the logged box) the draws follow the
+    # closed form; the residual GP adds at most its floor variance (0.01 standardized)
+    rng = np.random.default_rng(4)
+    X = rng.uniform(0, 1, (25, 2))
+
+    def q(A):
+        return 3 + 2 * A[:, 0] - A[:, 1] + 5 * A[:, 0] ** 2 + 4 * A[:, 1] ** 2
+
+    Z = rng.uniform(-1, 2, (6, 2))
+    F = trend_draws(X, q(X), Z, 50, np.random.default_rng(1), make_surrogate, 0)
+    assert F.shape == (50, 6)
+    assert np.abs(F.mean(0) - q(Z)).max() < 0.5      # values span about 3-40 here
