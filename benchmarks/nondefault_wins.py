@@ -525,7 +525,8 @@ def main(argv=None):
         OUT.write_text(json.dumps(res, indent=1, default=float))
     elif args.part == "standins":
         res = json.loads(OUT.read_text())
-        secs = (args.sections or "unit,unit_gp_hyper,unit_gp_sum,unit_gp_sum_ml").split(",")
+        secs = (args.sections or "unit,unit_gp_hyper,unit_gp_sum,unit_gp_sum_ml,unit_gp_trend"
+                ).split(",")
         summ = standin_summary(res, secs)
         for name, cases in summ.items():
             for key, v in cases.items():
