@@ -10,6 +10,9 @@
         --log-seeds 0,1,2,3,4,5,6,7,8,9 --variants benchmark,b30
     python benchmarks/nondefault_wins.py unit --cases levy3:0.05,branin:0.2 \
         --log-seeds 0,1,2,3,4,5,6,7,8,9
+    python benchmarks/nondefault_wins.py unit --classes gp_sum_ml --section unit_gp_sum_ml \
+        --cases levy3:0.05,branin:0.2,michalewicz2:0.05,branin:0.05 --log-seeds 0,1,2
+    python benchmarks/nondefault_wins.py standins    # the stand-in constructions vs truth
     python benchmarks/nondefault_wins.py summary     # the figures the README quotes
 
 Writes (merges into) ``benchmarks/results/nondefault_wins.json``.
@@ -36,7 +39,13 @@ truly wins.  Three parts, each a section of the results file:
 * ``unit``: the backtest alone (as ``b30``) decided twice over the same simulated runs,
   on the range-normalized AUC the product uses and on final regret normalized by random
   order's on the same stand-in (the unit of ``truth``): would deciding in the real
-  outcome's unit find the true winner?
+  outcome's unit find the true winner?  ``--classes`` chooses the stand-in classes
+  (``BacktestPlan.sim_classes``, e.g. the opt-in GP variants of
+  ``advisor/backtest/_gp_standins.py``) and ``--section`` the results section (one per
+  construction: ``unit`` is the default gp+forest, ``unit_gp_hyper``, ``unit_gp_sum``,
+  ``unit_gp_sum_ml`` one class each); each log's row is saved as it finishes.
+* ``standins`` (no runs): :func:`standin_summary` of the unit-like sections against
+  ``truth``, written to ``standins_summary``.
 """
 
 from __future__ import annotations
@@ -302,17 +311,21 @@ def _unit_decision(out, surrogate, metric) -> dict:
         for c in dec["comparisons"]}}
 
 
-def part_unit(cases, log_seeds, budget=30, progress=print) -> dict:
+def part_unit(cases, log_seeds, budget=30, progress=print, classes=None,
+              section=None) -> dict:
     """Would deciding in the real outcome's unit find the true winner?  The backtest
     alone (GP, the full grid, ``budget`` trials from d + 1 starts, as ``b30``) on each
     past log, decided twice over the same runs: on range-normalized AUC and on final
-    regret normalized by random order's on the same stand-in."""
+    regret normalized by random order's on the same stand-in.  ``classes``: the
+    stand-in classes (``BacktestPlan.sim_classes``; default the plan's); ``section``:
+    when given, each log's row is merged into that results section as it finishes."""
     from advisor.assessment._stages import _quick_model
     from advisor.backtest import plan_for, run_backtest
 
     out = {}
     for key, s, d, trials in _past_logs(cases, log_seeds):
-        plan = plan_for(True, sim_max_budget=budget, n_init=d + 1, replay=False)
+        plan = plan_for(True, sim_max_budget=budget, n_init=d + 1, replay=False,
+                        **({} if not classes else {"sim_classes": tuple(classes)}))
         t0 = time.process_time()
         with threadpool_limits(1):
             bt = run_backtest(trials, ["gp"], default_settings(quick=False), seed=s,
@@ -321,6 +334,10 @@ def part_unit(cases, log_seeds, budget=30, progress=print) -> dict:
         row = {m: _unit_decision(bt, "gp", m) for m in ("auc", "final")}
         row["cpu_seconds"] = time.process_time() - t0
         out.setdefault(key, {})[str(s)] = row
+        if section:  # each log as it finishes
+            res = json.loads(OUT.read_text()) if OUT.exists() else {}
+            res.setdefault(section, {}).setdefault(key, {})[str(s)] = row
+            OUT.write_text(json.dumps(res, indent=1, default=float))
         progress(f"{key} seed {s}: auc -> {row['auc']['chosen']}, final -> "
                  f"{row['final']['chosen']}", flush=True)
     return out
@@ -364,6 +381,111 @@ def summary(res) -> dict:
     return out
 
 
+def part_geometry(cases, log_seeds, classes, n_functions=8, radius=0.1,
+                  progress=print) -> dict:
+    """Where each stand-in construction puts its minimum, against the real function,
+    on the same candidate set (200 fresh samples of the space the product infers from
+    the log, the quick plan's): the unit-cube distance from the log's best trial to the function's minimizer over the
+    set, and the gap between the best candidate within ``radius`` of the log's best
+    trial and the set's minimum, as a fraction of the function's range on the set
+    (0: the log already sits at the optimum's basin).  No campaigns run."""
+    from advisor.assessment._stages import _quick_model
+    from advisor.backtest import mixed_standins
+
+    out = {}
+    for key, s, d, trials in _past_logs(cases, log_seeds):
+        name = key.split("@")[0]
+        f = nc.FUNCTIONS[name][0]
+        # the benchmark's functions take the unit cube, the logs' raw units
+        used = trials.used[trials.params].to_numpy(float)
+        best = used[int(np.argmin(trials.y))]
+        row = {}
+        for cls in ["real"] + list(classes):
+            st = mixed_standins(trials, 1 if cls == "real" else n_functions, 200, s,
+                                make=_quick_model, classes=("gp",) if cls == "real"
+                                else (cls,), quick=True)
+            F = st.frame.to_numpy(float)
+            values = f(F)[None] if cls == "real" else st.values
+            near = np.linalg.norm(F - best, axis=1) <= radius
+            dist, gap = [], []
+            for v in values:
+                dist.append(float(np.linalg.norm(F[int(np.argmin(v))] - best)))
+                rng_ = float(v.max() - v.min()) or 1.0
+                gap.append(float((v[near].min() - v.min()) / rng_) if near.any()
+                           else None)
+            row[cls] = {"distance": float(np.mean(dist)),
+                        "gap": float(np.mean([g for g in gap if g is not None]))
+                        if any(g is not None for g in gap) else None}
+        out.setdefault(key, {})[str(s)] = row
+        progress(f"{key} seed {s}: " + ", ".join(
+            f"{c} dist {v['distance']:.2f} gap {v['gap']}" for c, v in row.items()))
+    agg = {}
+    for key, rows in out.items():
+        agg[key] = {c: {m: float(np.mean([r[c][m] for r in rows.values()
+                                          if r[c][m] is not None]))
+                        for m in ("distance", "gap")} for c in ["real"] + list(classes)}
+    return {"radius": radius, "logs": out, "mean": agg}
+
+
+def standin_summary(res, sections) -> dict:
+    """Per ``unit``-like section (one stand-in construction each) and case: each
+    setting's simulated difference from the default (mean over logs of the per-log mean
+    over runs, and its se over logs) in both units beside the truth (``truth``'s final
+    regret at 30 trials), the rank correlation of the eight simulated means with the
+    truth's, how many logs give each true winner the right sign, and the decision's
+    non-default picks in each unit (on a case with no true winner these are false
+    picks).  For the mixed ``unit`` section each class is also summarized alone
+    (``unit/gp``, ``unit/forest``: its runs' share of each log's comparison)."""
+    out = {}
+    for sec in sections:
+        variants = [None] + (["gp", "forest"] if sec == "unit" else [])
+        for cl in variants:
+            name = sec if cl is None else f"{sec}/{cl}"
+            for key, rows in res.get(sec, {}).items():
+                truth = res.get("truth", {}).get(key)
+                if not truth:
+                    continue
+                tr = truth["summary"]["final_30"]
+                labels = [lab for lab in tr if lab not in
+                          (DEFAULT.label, "random search", "grid search")]
+                winners = set()
+                for t in ("truth", "truth_40"):
+                    winners |= set(res.get(t, {}).get(key, {}).get("true_winners", []))
+
+                def diff(row, lab, unit):
+                    c = row[unit]["comparisons"][lab]
+                    return c["mean_difference"] if cl is None else \
+                        c["by_class"][cl]["mean_difference"]
+
+                per = {}
+                for unit in ("final", "auc"):
+                    per[unit] = {lab: np.array([diff(r, lab, unit) for r in rows.values()])
+                                 for lab in labels}
+                sim = {lab: float(v.mean()) for lab, v in per["final"].items()}
+                rho = stats.spearmanr([sim[lab] for lab in labels],
+                                      [tr[lab]["minus_default"] for lab in labels])[0]
+                n = len(rows)
+                out.setdefault(name, {})[key] = {
+                    "logs": n, "true_winners": sorted(winners),
+                    "settings": {lab: {
+                        "truth_final_minus_default": tr[lab]["minus_default"],
+                        "sim_final_minus_default": sim[lab],
+                        "sim_final_se": float(per["final"][lab].std(ddof=1) / np.sqrt(n))
+                        if n > 1 else None,
+                        "sim_auc_minus_default": float(per["auc"][lab].mean())}
+                        for lab in labels},
+                    "spearman_sim_vs_truth": float(rho),
+                    "right_sign_logs": {w: int((per["final"][w] < 0).sum())
+                                        for w in sorted(winners)},
+                    "picks_final": [r["final"]["chosen"] for r in rows.values()
+                                    if r["final"]["chosen"] not in (None, DEFAULT.label)],
+                    "picks_auc": [r["auc"]["chosen"] for r in rows.values()
+                                  if r["auc"]["chosen"] not in (None, DEFAULT.label)],
+                    "cpu_seconds_per_log": float(np.mean([r["cpu_seconds"]
+                                                          for r in rows.values()]))}
+    return out
+
+
 def _cases(text):
     out = []
     for item in text.split(","):
@@ -383,29 +505,53 @@ def _merge(section, value, key=None):
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("part", choices=["incumbent", "truth", "assess", "unit", "summary"])
+    ap.add_argument("part", choices=["incumbent", "truth", "assess", "unit", "summary",
+                                     "standins", "geometry"])
     ap.add_argument("--cases", default="branin:0.05")
     ap.add_argument("--reps", type=int, default=30)
     ap.add_argument("--log-seeds", default="0")
     ap.add_argument("--variants", default="benchmark")
     ap.add_argument("--only", help="truth: settings besides the default, ';'-separated labels")
-    ap.add_argument("--section", default="truth")
+    ap.add_argument("--section", default=None,
+                    help="results section to write (default: the part's name)")
+    ap.add_argument("--sections", help="standins: the unit-like sections to summarize")
+    ap.add_argument("--classes", help="unit: stand-in classes, comma-separated "
+                                      "(default: the plan's, gp,forest)")
     args = ap.parse_args(argv)
     if args.part == "summary":
         res = json.loads(OUT.read_text())
         res["summary"] = summary(res)
         print(json.dumps(res["summary"], indent=1))
         OUT.write_text(json.dumps(res, indent=1, default=float))
+    elif args.part == "standins":
+        res = json.loads(OUT.read_text())
+        secs = (args.sections or "unit,unit_gp_hyper,unit_gp_sum,unit_gp_sum_ml,unit_gp_trend"
+                ).split(",")
+        summ = standin_summary(res, secs)
+        for name, cases in summ.items():
+            for key, v in cases.items():
+                print(f"{name} {key} ({v['logs']} logs): rho {v['spearman_sim_vs_truth']:+.2f}"
+                      f", right sign {v['right_sign_logs']}, picks final {v['picks_final']}"
+                      f" auc {v['picks_auc']}")
+                print("   " + ", ".join(f"{k} {s['sim_final_minus_default']:+.2f}"
+                                        f"/{s['truth_final_minus_default']:+.2f}"
+                                        for k, s in v["settings"].items()))
+        res["standins_summary"] = summ
+        OUT.write_text(json.dumps(res, indent=1, default=float))
+    elif args.part == "geometry":
+        classes = (args.classes or "gp,forest,gp_hyper,gp_sum,gp_sum_ml").split(",")
+        _merge(args.section or "standins_geometry",
+               part_geometry(_cases(args.cases),
+                             [int(s) for s in args.log_seeds.split(",")], classes))
     elif args.part == "incumbent":
         _merge("incumbent", part_incumbent())
     elif args.part == "unit":
-        res = part_unit(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")])
-        old = json.loads(OUT.read_text()).get("unit", {}) if OUT.exists() else {}
-        for k, v in res.items():
-            old.setdefault(k, {}).update(v)
-        _merge("unit", old)
+        section = args.section or "unit"
+        part_unit(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")],
+                  classes=None if not args.classes else args.classes.split(","),
+                  section=section)
     elif args.part == "truth":
-        part_truth(_cases(args.cases), args.reps, section=args.section,
+        part_truth(_cases(args.cases), args.reps, section=args.section or "truth",
                    only=None if not args.only else args.only.split(";"))
     else:
         res = part_assess(_cases(args.cases), [int(s) for s in args.log_seeds.split(",")],

@@ -17,7 +17,8 @@ got there, never better.  This is the offline replay idea of Li, Chu, Langford &
 **Simulated campaigns** (on stand-ins with a known optimum), the evidence.  Stand-in
 functions are drawn from models of two classes fitted to all logged trials, half each
 (``sim_classes``, :mod:`._standins`): joint GP posterior draws (``sample_y``) and
-bootstrap-forest functions (the mean of 5 distinct bootstrap trees), on a candidate set
+bootstrap-forest functions (the mean of 5 distinct bootstrap trees; opt-in GP variants
+``gp_hyper``, ``gp_sum``, ``gp_sum_ml``, ``gp_trend``; :mod:`._gp_standins`), on a candidate set
 of fresh uniform samples of the parameter space (issue 12: candidate sets that were
 mostly logged points favoured revisiting) plus the grid-search designs.  Each stand-in
 is defined on that finite set only, so its minimum over the set is exactly known and the

@@ -17,6 +17,16 @@ _CLASS_TEXT = {
     "gp": "Gaussian-process posterior draws (joint, latent)",
     "forest": f"bootstrap-forest functions (the mean of {FOREST_TREES_PER_FUNCTION} "
               "distinct trees, each fitted to a bootstrap resample of the log)",
+    # opt-in classes (_gp_standins.py)
+    "gp_hyper": "Gaussian-process posterior draws, each with its own hyperparameters "
+                "slice-sampled from their posterior given the log (joint, latent)",
+    "gp_sum": "Gaussian-process posterior draws with a second Matérn term of the same "
+              "variance at a third of the fitted length scales (joint, latent)",
+    "gp_sum_ml": "posterior draws of a Gaussian process whose kernel is a sum of two "
+                 "Matérn-5/2 ARD terms, both fitted by type-II maximum likelihood "
+                 "(joint, latent)",
+    "gp_trend": "a quadratic trend (no interactions, least squares) plus joint latent "
+                "posterior draws of a Gaussian process fitted to its residuals",
 }
 
 

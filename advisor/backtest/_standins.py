@@ -11,6 +11,11 @@ One tree alone is piecewise constant with broad plateaus (its minimum is shared 
 every candidate in one leaf, which makes "finding" it trivial); the mean of a few trees
 is a finer staircase, still a joint function of the candidate set (our choice).
 
+Opt-in classes ``gp_hyper``, ``gp_sum``, ``gp_sum_ml`` and ``gp_trend`` (GP draws
+with sampled hyperparameters, a sum kernel or a quadratic trend,
+:mod:`._gp_standins`) can be named in ``BacktestPlan.sim_classes``; none is a default (measured in
+``benchmarks/nondefault_wins.py``, section ``standins_summary``: no clear gain).
+
 Both are drawn jointly on the same candidate set, so each stand-in's minimum over the
 set is exact.  The observation noise is the GP's fitted noise level (the noise the log
 shows), the same for every class.
@@ -26,6 +31,8 @@ import pandas as pd
 
 from ..execution import task_seed
 from ..surrogates import make_surrogate
+from ._gp_standins import (GP_STANDIN_CLASSES, hyper_draws, sum_kernel_draws,
+                           trend_draws, two_component_draws)
 
 __all__ = ["StandIns", "posterior_standins", "mixed_standins", "STANDIN_CLASSES",
            "FOREST_TREES_PER_FUNCTION"]
@@ -75,6 +82,8 @@ class StandIns:
 def _draw(trials, frame, sampler, n, seed, rng, make, quick):
     """``n`` functions of class ``sampler`` on ``frame``; returns (values, noise_std)."""
     used = trials.used[trials.params].reset_index(drop=True)
+    if sampler in GP_STANDIN_CLASSES:
+        return _draw_gp_variant(trials, used, frame, sampler, n, seed, rng, make, quick)
     model = make(sampler, seed=task_seed(seed, "standin-model", sampler), quick=quick)
     if not callable(getattr(model, "sample_y", None)):
         raise ValueError(f"surrogate '{sampler}' has no sample_y; joint posterior draws "
@@ -89,6 +98,30 @@ def _draw(trials, frame, sampler, n, seed, rng, make, quick):
     noise = getattr(model, "noise_std_", None)
     noise = float(noise) if noise is not None and np.isfinite(noise) else None
     return values, noise
+
+
+def _draw_gp_variant(trials, used, frame, sampler, n, seed, rng, make, quick):
+    """The opt-in GP constructions of :mod:`._gp_standins`: the project GP fitted to
+    the log (as the ``gp`` class), then hyperparameter-marginalized or sum-kernel draws."""
+    model = make("gp", seed=task_seed(seed, "standin-model", sampler), quick=quick)
+    X = trials.space.encode(used, "onehot")
+    y = np.asarray(trials.y, dtype=float)
+    model.fit(X, y)
+    Xc = trials.space.encode(frame, "onehot")
+    if sampler == "gp_hyper":
+        values = hyper_draws(model, X, y, Xc, n, rng, make,
+                             task_seed(seed, "standin-model", sampler))
+    elif sampler == "gp_trend":
+        values = trend_draws(X, y, Xc, n, rng, make,
+                             task_seed(seed, "standin-model", sampler))
+    elif sampler == "gp_sum":
+        values = sum_kernel_draws(model, X, y, Xc, n, rng)
+    else:
+        values = two_component_draws(model, X, y, Xc, n, rng,
+                                     task_seed(seed, "standin-model", sampler))
+    if not np.all(np.isfinite(values)):
+        raise ValueError(f"stand-in class '{sampler}' returned non-finite draws")
+    return values, float(model.noise_std_)
 
 
 def posterior_standins(trials, n_functions: int, n_extra: int, seed: int, *,
