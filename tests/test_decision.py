@@ -237,3 +237,36 @@ def test_the_report_states_the_pair_the_disagreement_and_the_acquisition_source(
     assert "did not run" in text
     assert "did not test it" in headline(view)
     assert "chosen by the acquisition backtest" not in headline(view)
+
+
+def test_kept_default_states_its_measured_real_outcome():
+    # The figure the statement prints is the benchmark's record (section "assess" of
+    # benchmarks/results/nondefault_wins.json, variant "benchmark" = the product's
+    # quick assessment, on the cases its summary lists true winners for), and its upper bound is the exact
+    # one-sided 95% Clopper-Pearson bound (Clopper & Pearson 1934) from scipy's beta.
+    import json
+    from pathlib import Path
+
+    res = json.loads((Path(__file__).resolve().parents[1] / "benchmarks" / "results" /
+                      "nondefault_wins.json").read_text())
+    # logs where the backtest's paired test ran (a log whose recommended model was not
+    # backtested states that nothing was tested, so it is not counted)
+    logs = picked = 0
+    for key, v in res["summary"].items():
+        if not (key.endswith(" benchmark") and v["true_winners"]):
+            continue
+        for row in res["assess"][key[:-len(" benchmark")]]["benchmark"].values():
+            if row["beats_default"] is not None:
+                logs += 1
+                picked += row["recommended"] in v["true_winners"]
+    rd = decision.REAL_DETECTION
+    assert (rd["logs"], rd["picked"]) == (logs, picked)
+    bound = stats.beta.ppf(0.95, rd["picked"] + 1, rd["logs"] - rd["picked"])
+    assert rd["upper_95"] == pytest.approx(bound, abs=5e-4)
+    dec = {"alpha": 0.05, "power_at_0.1": 0.9, "experiment": "simulated",
+           "test": "one-sided Wilcoxon signed-rank, Holm", "beats_default": False,
+           "comparisons": [{"label": "UCB beta=4", "runs": 24, "p_value": 0.3,
+                            "p_holm": 0.6}]}
+    text = decision._acquisition_statement("backtest", dec, "gp", {})
+    assert "no reason to change it" in text
+    assert f"on {rd['logs']} benchmark logs" in text and f"picked it {rd['picked']} times" in text
