@@ -24,7 +24,7 @@ demo: $(STAMP)
 	$(PY) -m advisor assess sample_logs/forecast_tuning.csv --objective val_mape \
 	    --campaign search_round --order trial --space sample_logs/forecast_tuning.space.toml --out reports --seed $(SEED) --quick --propose 5
 
-# The whole suite, slow tests included (about 12 minutes on 2 cores); `make test-fast`
+# The whole suite, slow tests included (about 13 minutes on 2 cores); `make test-fast`
 # skips the tests marked slow for a quick loop while editing.
 test: $(STAMP)
 	$(PY) -m pytest -q -p no:cacheprovider
