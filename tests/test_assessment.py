@@ -69,3 +69,27 @@ def test_quick_cost_projection_times_only_the_models_that_can_be_recommended(tri
     assert "baseline" in set(a.ranking["surrogate"])
     assert cost["scope"].startswith("quick mode: projected for the models that can be "
                                     "recommended")
+
+
+@pytest.mark.slow
+def test_a_leader_failing_every_guard_still_has_its_acquisition_tested():
+    # On pure noise (y independent of x) no model orders held-out trials better than
+    # chance, so every model fails the order guard and the leader is the lowest CRPS of
+    # them all; it is still the model the recommendation names, so its acquisition
+    # setting must come from the backtest, not be an untested default.
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(3)
+    n = 60
+    df = pd.DataFrame({"a": rng.uniform(size=n), "b": rng.uniform(size=n),
+                       "y": rng.standard_normal(n), "campaign": np.repeat(["c1", "c2", "c3"],
+                                                                         n // 3)})
+    a = advisor.assess(df, seed=0, quick=True, surrogates=["gp", "baseline"], plan=False,
+                       objective="y", campaign="campaign", jobs=1)
+    t = a.ranking
+    assert not (t["guard_coverage"] & t["guard_order"]).any()     # the premise
+    leader = a.recommendation["surrogate"]
+    assert list(a.backtest["per_surrogate"]) == [leader]
+    assert a.recommendation["acquisition_source"] == "backtest"
+    assert "nothing was tested" not in a.recommendation["acquisition_statement"]

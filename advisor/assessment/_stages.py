@@ -62,19 +62,24 @@ def _replicate_noise(trials: TrialTable):
 _CANDIDATE_RULE = ("backtested: the calibration leader and the models close to it (tied "
                    "with it, then within 10% of its mean CRPS; up to 2 models in all in "
                    "quick mode, 3 otherwise), and the default GP when it passed the "
-                   "guards; the other models cannot change the recommendation")
+                   "guards; when no model passed the guards, the leader the recommendation "
+                   "names; the other models cannot change the recommendation")
 
 
 def _backtest_candidates(ranking, quick: bool) -> list[str]:
     """The models that can matter: the leader, the models close to it (the tie group
     and the pair candidates, :func:`advisor.decision.close_candidates`), and the default
-    GP when it passes the guard rails.  Backtesting refits a model at every step, so
-    the grid is kept to these."""
+    GP when it passes the guard rails.  When no model passes them, the leader is the
+    model the recommendation names all the same (:mod:`advisor.ranking`), so it is
+    backtested alone: its acquisition setting is then tested, not an untested default.
+    Backtesting refits a model at every step, so the grid is kept to these."""
     t = ranking.table
-    ok = t[(t["status"] == "ok")]
-    ok = ok[ok["guard_coverage"].astype(bool) & ok["guard_order"].astype(bool)]
+    working = t[(t["status"] == "ok")]
+    ok = working[working["guard_coverage"].astype(bool) & working["guard_order"].astype(bool)]
     cap = 2 if quick else 3
     names = ok["surrogate"].tolist()
+    if not names:
+        return [ranking.leader] if ranking.leader in working["surrogate"].tolist() else []
     if ranking.leader not in names:
         out = names[:1]
     else:
