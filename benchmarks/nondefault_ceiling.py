@@ -17,7 +17,9 @@ decision function, unchanged, ``B`` times per case, in two units:
 * ``auc_30``: the area under the normalized best-so-far regret curve over 30 trials, the
   unit the product decides in (there normalized by the stand-in's range);
 * ``final_30``: the final normalized regret (random search = 1), the unit the real
-  outcome is judged in.
+  outcome is judged in;
+* ``auc_12``, ``final_12``: the same after 12 trials, the quick backtest's simulated
+  campaign length (``plan_for(True).sim_max_budget``).
 
 On the quick grid (the product's quick backtest: EI xi=0.01, PI xi=0.01, UCB beta=4,
 Thompson) and the full grid (nine settings).  A *pick* is a non-default setting the
@@ -51,6 +53,9 @@ from advisor.backtest import paired_decision  # noqa: E402
 SOURCE = ROOT / "benchmarks" / "results" / "nondefault_wins.json"
 OUT = ROOT / "benchmarks" / "results" / "nondefault_ceiling.json"
 DEFAULT = "EI xi=0.01"
+#: the unit and the campaign length: 12 trials is the quick backtest's simulated budget
+#: (``plan_for(True).sim_max_budget``), 30 the next campaign's
+UNITS = ("auc_12", "final_12", "auc_30", "final_30")
 QUICK = ("PI xi=0.01", "UCB beta=4", "Thompson")
 BASELINES = ("random search", "grid search")
 CASES = (("truth", "levy3@0.05"), ("truth_40", "levy3@0.05"), ("truth", "branin@0.2"),
@@ -89,7 +94,7 @@ def run(ns=(24, 48, 96), B=300, seed=0, source=SOURCE) -> dict:
     for section, case in CASES:
         c = res[section][case]
         winners = set(c["true_winners"])
-        for unit in ("auc_30", "final_30"):
+        for unit in UNITS:
             vals = c["values"][unit]
             full = [s for s in vals if s not in (DEFAULT, *BASELINES)]
             for grid_name, grid in (("quick", [s for s in QUICK if s in vals]),
