@@ -267,6 +267,34 @@ def test_kept_default_states_its_measured_real_outcome():
            "test": "one-sided Wilcoxon signed-rank, Holm", "beats_default": False,
            "comparisons": [{"label": "UCB beta=4", "runs": 24, "p_value": 0.3,
                             "p_holm": 0.6}]}
-    text = decision._acquisition_statement("backtest", dec, "gp", {})
+    text = decision._acquisition_statement("backtest", dec, "gp",
+                                           {"simulated": {"budget": 12}})
     assert "no reason to change it" in text
     assert f"on {rd['logs']} benchmark logs" in text and f"picked it {rd['picked']} times" in text
+    assert "24 paired simulated runs of 12 trials" in text
+
+
+def test_kept_default_states_what_perfect_standins_would_find():
+    # The ceiling the statement prints is the record of benchmarks/nondefault_ceiling.py
+    # (the stored real campaigns of the true-winner cases, resampled and decided by the
+    # product's paired_decision): quick grid, 24 runs, the product's AUC unit, lowest and
+    # highest rate over the two cases, after 12 and after 30 trials.
+    import json
+    from pathlib import Path
+
+    res = json.loads((Path(__file__).resolve().parents[1] / "benchmarks" / "results" /
+                      "nondefault_ceiling.json").read_text())
+    ps = decision.PERFECT_STANDINS
+    for trials in (12, 30):
+        rates = [r["true_pick_rate"] for r in res["cases"]
+                 if r["section"] == "truth" and r["true_winners"] and r["grid"] == "quick"
+                 and r["n"] == ps["runs"] and r["unit"] == f"auc_{trials}"]
+        assert len(rates) == 2
+        assert ps[f"trials_{trials}"] == pytest.approx((min(rates), max(rates)), abs=0.005)
+    dec = {"alpha": 0.05, "power_at_0.1": 0.9, "experiment": "simulated",
+           "test": "one-sided Wilcoxon signed-rank, Holm", "beats_default": False,
+           "comparisons": [{"label": "UCB beta=4", "runs": 24, "p_value": 0.3,
+                            "p_holm": 0.6}]}
+    text = decision._acquisition_statement("backtest", dec, "gp", {})
+    lo, hi = ps["trials_30"]
+    assert f"{lo:.0%}-{hi:.0%} with runs of 30" in text
