@@ -138,7 +138,7 @@ def _updates_text(plan) -> str:
             "steps only); after the run's first fit, a model offering warm_started() "
             "starts these from its last fit (a Gaussian process from its "
             "hyperparameters, one start, no restarts; the deep ensemble from its "
-            "trained weights, a tenth of its Adam steps); in between, a model "
+            "trained weights, a quarter of its Adam steps); in between, a model "
             f"offering with_fixed_hyperparameters() is refitted {every} with them held "
             "(the GP: one Cholesky factorization; the neural process: its trained "
             "network conditioned on the run's trials), and any other model is kept as "
