@@ -6,12 +6,12 @@ import math
 
 import numpy as np
 import torch
-from sklearn.base import clone
 
-from .base import ScaledSurrogate, check_fit_inputs
+from .base import ScaledSurrogate
 from .nets import (LatentSamplerMixin, MixtureOfComponentsMixin, NewCampaignMixin, StackedMLP,
                    as_tensor, campaign_offset_variance, epochs_for, holdout_split, inner_variance_scale, mixture_moments,
-                   torch_generator, torch_threads, train_with_early_stopping)
+                   torch_generator, torch_threads, train_with_early_stopping,
+                   WarmStartMixin)
 
 __all__ = ["DeepEnsemble", "gaussian_head"]
 
@@ -47,7 +47,8 @@ def _gaussian_nll(out, target):
     return (0.5 * (torch.log(var) + (target - mu) ** 2 / var)).mean(dim=-1)
 
 
-class DeepEnsemble(NewCampaignMixin, LatentSamplerMixin, MixtureOfComponentsMixin,
+class DeepEnsemble(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin,
+                   MixtureOfComponentsMixin,
                    ScaledSurrogate):
     """Uniform mixture of independently trained networks with a Gaussian output.
 
@@ -145,43 +146,14 @@ class DeepEnsemble(NewCampaignMixin, LatentSamplerMixin, MixtureOfComponentsMixi
         memory).  Rows the previous fit trained on are never held out, so the early
         stopping and the variance scale see only unseen rows.  Any other training set
         (not an extension of this fit's) gets a full fit.  ``info_["warm_start"]`` says
-        which was done.
+        which was done.  The warm state is not a constructor argument:
+        :func:`sklearn.base.clone` of the copy is a plain unfitted ensemble.
         """
-        if not hasattr(self, "net_"):
-            raise ValueError("warm_started() needs a fitted ensemble")
-        new = clone(self)
-        new._warm = {"state": self.net_.state_copy(), "X": self._train_X.copy(),
-                     "y": self._train_y.copy(), "val": self._val_idx.copy(),
-                     "scaling": (self.x_mean_, self.x_scale_, self.y_mean_, self.y_scale_),
-                     "members": self.net_.members, "d": self._train_X.shape[1]}
-        return new
+        return WarmStartMixin.warm_started(self)
 
-    def _scale_fit(self, X, y):
-        warm = self._warm_prefix(X, y)
-        if warm is None:
-            return super()._scale_fit(X, y)
-        X, y = check_fit_inputs(X, y)
-        self.x_mean_, self.x_scale_, self.y_mean_, self.y_scale_ = warm["scaling"]
-        return (X - self.x_mean_) / self.x_scale_, (y - self.y_mean_) / self.y_scale_
-
-    def _warm_prefix(self, X, y):
-        """The warm-start state when ``X``, ``y`` extend the previous fit's data."""
-        warm = getattr(self, "_warm", None)
-        if warm is None:
-            return None
-        X, y = np.asarray(X, dtype=float), np.asarray(y, dtype=float).ravel()
-        n0 = len(warm["y"])
-        if (X.ndim != 2 or X.shape[1] != warm["d"] or len(y) < n0
-                or not np.array_equal(X[:n0], warm["X"]) or not np.array_equal(y[:n0], warm["y"])):
-            return None
-        return warm
-
-    def fit(self, X, y, groups=None):
-        """Fit on ``X``, ``y`` (``groups``: see :class:`NewCampaignMixin`)."""
-        self._warm_now = self._warm_prefix(X, y)
-        self._train_X = np.asarray(X, dtype=float).copy()
-        self._train_y = np.asarray(y, dtype=float).ravel().copy()
-        return super().fit(X, y, groups)
+    def _warm_state(self) -> dict:
+        return {"state": self.net_.state_copy(), "val": self._val_idx.copy(),
+                "members": self.net_.members}
 
     def _fit(self, Xs, ys):
         torch_threads()
