@@ -21,7 +21,7 @@ _VAR_FLOOR = 1e-6
 
 #: Budget of a warm-started fit (:meth:`DeepEnsemble.warm_started`): Adam steps from the
 #: previous fit's weights, a quarter of the preset's, same patience (our choice, chosen
-#: by measurement: ``tests/test_ensemble_warm.py`` and ``benchmarks/assessment_cost.py``).
+#: by measurement: ``tests/test_network_warm_start.py`` and ``benchmarks/assessment_cost.py``).
 _WARM_FRACTION = 0.25
 _WARM_MIN_EPOCHS = 5
 
@@ -152,8 +152,7 @@ class DeepEnsemble(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin,
         return WarmStartMixin.warm_started(self)
 
     def _warm_state(self) -> dict:
-        return {"state": self.net_.state_copy(), "val": self._val_idx.copy(),
-                "members": self.net_.members}
+        return {"state": self.net_.state_copy(), "val": self._val_idx.copy()}
 
     def _fit(self, Xs, ys):
         torch_threads()
@@ -165,19 +164,11 @@ class DeepEnsemble(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin,
         gen = torch_generator(rng)
         X, y = as_tensor(Xs), as_tensor(ys)
         warm = getattr(self, "_warm_now", None)
-        if warm is not None and warm["members"] != n_members:
-            warm = None
         if warm is None:
             train, val = holdout_split(len(ys), self.holdout, rng)
             steps, min_epochs = preset["target_steps"], preset["min_epochs"]
         else:  # old held-out rows stay out; the new rows are split at the same fraction
-            n0 = len(warm["y"])
-            new_rows = np.arange(n0, len(ys))
-            k = int(round(self.holdout * len(new_rows))) if len(warm["val"]) or \
-                len(ys) >= 15 else 0
-            new_val = np.sort(rng.permutation(new_rows)[:k])
-            val = np.union1d(warm["val"], new_val).astype(int)
-            train = np.setdiff1d(np.arange(len(ys)), val)
+            train, val = self._warm_split(len(ys), self.holdout, rng)
             steps = int(math.ceil(_WARM_FRACTION * preset["target_steps"]))
             min_epochs = _WARM_MIN_EPOCHS
         bs = min(preset["batch_size"], len(train))

@@ -566,6 +566,18 @@ class WarmStartMixin:
         self._train_y = np.asarray(y, dtype=float).ravel().copy()
         return super().fit(X, y, groups)
 
+    def _warm_split(self, n: int, fraction: float, rng: np.random.Generator):
+        """(train, held-out) rows of a warm fit with early stopping: the previous
+        fit's held-out rows (``_warm_state()["val"]``) stay out, rows it trained on
+        never go out, and ``round(fraction * new rows)`` of the new rows are held out
+        (none while the previous fit had no held-out rows and ``n < 15``, the
+        threshold of :func:`holdout_split`'s defaults)."""
+        warm = self._warm_now
+        new_rows = np.arange(len(warm["y"]), n)
+        k = int(round(fraction * len(new_rows))) if len(warm["val"]) or n >= 15 else 0
+        val = np.union1d(warm["val"], np.sort(rng.permutation(new_rows)[:k])).astype(int)
+        return np.setdiff1d(np.arange(n), val), val
+
     def _scale_fit(self, X, y):
         warm = getattr(self, "_warm_now", None)
         if warm is None:
