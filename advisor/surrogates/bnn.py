@@ -105,8 +105,9 @@ class AdaptiveSGHMC(torch.optim.Optimizer):
         return loss
 
 
-#: A warm-started chain's burn-in and adaptation, as fractions of the preset's (our
-#: choice; the same fraction as the deep ensemble's warm start).
+#: A warm-started chain's burn-in, adaptation and thinning interval, as fractions of the
+#: preset's (our choice, by measurement: ``tests/test_network_warm_start.py``): the same
+#: number of draws from a quarter of the steps.
 _WARM_FRACTION = 0.25
 
 _PRESETS = {
@@ -263,8 +264,9 @@ class SGHMCBayesianNet(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin,
 
     def warm_started(self) -> "SGHMCBayesianNet":
         """An unfitted copy whose chain starts from this fit's last retained draw
-        (weights and both precisions) with a quarter of the preset's burn-in and
-        adaptation, then keeps the preset's draws (optional protocol member; the
+        (weights and both precisions) with a quarter of the preset's burn-in,
+        adaptation and thinning interval, keeping the preset's number of draws (a
+        quarter of the chain; optional protocol member; the
         backtest's scheduled re-fits within a run use it).  Only a training set that
         extends this fit's (its rows first, unchanged) is warm-started, with this fit's
         standardization; any other gets a full fit.  Starting a chain from the previous
@@ -298,6 +300,7 @@ class SGHMCBayesianNet(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin,
             tau = float(self.noise_precision or warm["tau"])
             preset["burn_in"] = int(math.ceil(_WARM_FRACTION * preset["burn_in"]))
             preset["adapt"] = int(math.ceil(_WARM_FRACTION * preset["adapt"]))
+            preset["keep_every"] = int(math.ceil(_WARM_FRACTION * preset["keep_every"]))
         else:
             warm = None
         n_par = net.flat.numel()

@@ -120,7 +120,7 @@ def blr_posterior(Phi, y, alpha: float, beta: float):
 # -- the surrogate ---------------------------------------------------------------------
 #: A warm-started fit's Adam steps, a fraction of the preset's (our choice; as the deep
 #: ensemble's).
-_WARM_FRACTION = 0.25
+_WARM_FRACTION = 0.1
 
 _PRESETS = {
     # target_steps: optimizer steps aimed for; epochs are derived from it (nets.epochs_for)
@@ -215,7 +215,7 @@ class DNGO(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin, ScaledSurrogate
 
     def warm_started(self) -> "DNGO":
         """An unfitted copy whose network continues training from this fit's weights
-        for a quarter of the preset's Adam steps (at least 5 epochs), then takes the
+        for a tenth of the preset's Adam steps (at least 5 epochs), then takes the
         Bayesian linear regression afresh (optional protocol member; the backtest's
         scheduled re-fits within a run use it).  As the deep ensemble's
         (:meth:`advisor.surrogates.ensemble.DeepEnsemble.warm_started`): only a training

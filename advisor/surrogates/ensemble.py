@@ -20,9 +20,9 @@ __all__ = ["DeepEnsemble", "gaussian_head"]
 _VAR_FLOOR = 1e-6
 
 #: Budget of a warm-started fit (:meth:`DeepEnsemble.warm_started`): Adam steps from the
-#: previous fit's weights, a quarter of the preset's, same patience (our choice, chosen
+#: previous fit's weights, a tenth of the preset's, same patience (our choice, chosen
 #: by measurement: ``tests/test_network_warm_start.py`` and ``benchmarks/assessment_cost.py``).
-_WARM_FRACTION = 0.25
+_WARM_FRACTION = 0.1
 _WARM_MIN_EPOCHS = 5
 
 _PRESETS = {
@@ -138,7 +138,7 @@ class DeepEnsemble(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin,
         that has grown) keeps this fit's input and output standardization (so the
         networks compute the same function before the first step), keeps its held-out
         rows held out, holds out the same fraction of the new rows, and trains every
-        member for a quarter of the preset's Adam steps (at least 5 epochs) with the
+        member for a tenth of the preset's Adam steps (at least 5 epochs) with the
         same early stopping.  Continuing from the current weights when the data grow
         is common practice for networks in a sequential optimization loop (Snoek et al.
         2015, Scalable Bayesian optimization using deep neural networks, ICML, retrain
