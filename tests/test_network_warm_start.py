@@ -3,8 +3,8 @@ uses it.
 
 The backtest's scheduled re-fits within a simulated campaign start from the last fit
 (:mod:`advisor.backtest._pool`); for the deep ensemble and DNGO that means continuing
-Adam from the trained weights on the grown training set for a quarter of the steps, for
-the SGHMC network a chain from the last draw with a quarter of the burn-in.  These
+Adam from the trained weights on the grown training set for a tenth of the steps, for
+the SGHMC network a chain from the last draw a quarter as long.  These
 checks compare it with the stale model (the previous fit, what the backtest used between
 full fits) and with a full refit, on Branin (a published test function, closed form),
 and with an external yardstick (scikit-learn's GP on the same rows).
@@ -64,13 +64,12 @@ def test_warm_start_learns_the_new_rows_about_as_well_as_a_full_refit(name, seed
     # right half, tested on the right half; the warm start's median held-out NLL over
     # the seeds beats the stale model's (the previous fit, what the backtest used
     # between full fits) and is within 1 nat of a full refit's (our margin).  Measured
-    # medians (stale / warm / full, 4 seeds): ensemble 27.1 / 8.3 / 9.4 (8 seeds at
-    # the same fraction: 27.1 / 5.4 / 8.3; per seed the warm start was the worse of the
-    # two in 2 of 8, once by 16 nats: a median, not every seed), DNGO 140 / 17.0 / 186,
-    # BNN 5.77 / 5.36 / 5.31.  scikit-learn's GP on the same rows is an external
-    # yardstick: a calibrated model does better than both networks here (the check
-    # fails if the problem or its NLL were broken).  About 5 (ensemble, DNGO) and
-    # 12 (BNN) CPU s.
+    # medians (stale / warm / full, 4 seeds): ensemble 27.1 / 10.1 / 9.4 (per seed the
+    # warm start was the worse of the two in 2 of 4: a median, not every seed), DNGO
+    # 140 / 7.0 / 186, SGHMC network 5.77 / 5.51 / 5.31.  scikit-learn's GP on the
+    # same rows is an external yardstick: a calibrated model does better than both
+    # networks here (the check fails if the problem or its NLL were broken).  About 5
+    # (ensemble, DNGO) and 10 (BNN) CPU s.
     stale, warm, full, gp = [], [], [], []
     n0, k = 5, 5
     for seed in range(seeds):

@@ -38,8 +38,8 @@ and conditions on the run's trials, and is retrained every ``reoptimize_every`` 
 only, not on doubling: ``reoptimize_on_doubling = False``), any other model kept as it
 was.  After the run's first fit, a model offering ``warm_started()`` starts its
 scheduled re-fits from its last fit (the GPs from its hyperparameters; the deep ensemble
-and DNGO from their trained weights, with a quarter of their Adam steps; the SGHMC
-network from its last draw, with a quarter of its burn-in).  ``updates_by_model``
+and DNGO from their trained weights, with a tenth of their Adam steps; the SGHMC
+network from its last draw, a chain a quarter as long).  ``updates_by_model``
 records the path each model took.  This follows
 the "prior/posterior draws as test functions" practice of e.g. Hennig & Schuler (2012,
 sec. 4); the candidate-set construction and the second class are ours.
