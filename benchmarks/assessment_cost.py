@@ -15,8 +15,8 @@ Cases (the cost targets of the acquisition issue; figures, not timed tests):
 * ``quick_branin6`` and ``quick_branin6_gp``: a quick assessment of the past log
   ``benchmarks/nondefault_wins.py`` makes for case branin:0.2, log seed 6 (4 campaigns
   x 20 trials, 2 parameters), where networks are in the tie group and so are
-  backtested; the ``_gp`` case offers the same log only the non-network models (the
-  three GPs, the forest, the baseline), so its backtest candidates are GPs.  The
+  backtested; the ``_gp`` case offers the same log only the three GPs and the
+  baseline, so its backtest candidates are GPs.  The
   figure is the ratio of the two (``cpu_ratio_to_gp_only``, total and backtest stage):
   what backtesting the networks costs beside a GP-only log of that size (issue 12,
   deliverable 8: not more than about 2x).
@@ -140,7 +140,9 @@ def _branin6(tmp: Path, surrogates=None):
     return trials, True, about
 
 
-_NON_NETWORK = ("gp", "campaign_gp", "warped_gp", "forest", "baseline")
+# the forest left out too: in the tie group it is backtested, and its refits cost more
+# than the GPs' (measured: with it the twin's backtest was 89 of 99 CPU s)
+_NON_NETWORK = ("gp", "campaign_gp", "warped_gp", "baseline")
 
 CASES = {"quick500": _quick500, "thorough138": _thorough138,
          "quick_branin6": _branin6,
