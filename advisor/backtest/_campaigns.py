@@ -36,7 +36,11 @@ one, and in between a model offering ``with_fixed_hyperparameters()`` is refitte
 with those hyperparameters held (the GPs; the neural process keeps its trained network
 and conditions on the run's trials, and is retrained every ``reoptimize_every`` steps
 only, not on doubling: ``reoptimize_on_doubling = False``), any other model kept as it
-was.  This follows
+was.  After the run's first fit, a model offering ``warm_started()`` starts its
+scheduled re-fits from its last fit (the GPs from its hyperparameters; the deep ensemble
+and DNGO from their trained weights, with a tenth of their Adam steps; the SGHMC
+network from its last draw, a chain a quarter as long).  ``updates_by_model``
+records the path each model took.  This follows
 the "prior/posterior draws as test functions" practice of e.g. Hennig & Schuler (2012,
 sec. 4); the candidate-set construction and the second class are ours.
 
@@ -105,6 +109,9 @@ Output of :func:`run_backtest` (plain dicts, lists, str, int, float, bool, None)
                    plan: {every BacktestPlan field}, xi_units, objective_direction,
                    score_rule}
     surrogates    [name, ...]
+    updates_by_model {name: {first_fit, scheduled_refit, between_refits,
+                   reoptimize_on_doubling}}  how each model was refitted within a run
+                   (replay and simulated), see :func:`._pool.update_paths`
     settings      [{name, params, label}, ...]
     replay        None when plan.replay is False, else
       campaigns   [{campaign, trials, used: True, n_init, picks, best, worst,
@@ -169,7 +176,7 @@ from ..execution import Executor, task_seed
 from ..surrogates import make_surrogate
 from ._choice import DEFAULT_LABEL, _decide, _overall_choice, choose_setting
 from ._plan import BacktestPlan, plan_for
-from ._pool import _pool_task, replay_pool
+from ._pool import _pool_task, replay_pool, update_paths
 from ._replay import _replay_grid, _skipped_campaigns, campaign_pools, replay_paired_test
 from ._simulated import _simulated_grid
 from ._standins import StandIns, posterior_standins
@@ -268,6 +275,8 @@ def run_backtest(trials, surrogates: list[str], settings: list[AcquisitionSettin
                    "score_rule": "mean over experiments of the median normalized-regret "
                                  "AUC; ties by replay trials_to_best5"},
         "surrogates": list(surrogates),
+        "updates_by_model": {name: update_paths(make(name, seed=0, quick=quick), plan)
+                             for name in surrogates},
         "settings": [dict(s.to_dict(), label=s.label) for s in settings],
         "replay": replay,
         "simulated": simulated,

@@ -12,7 +12,7 @@ from threadpoolctl import threadpool_limits
 
 from ..acquisition import AcquisitionSetting, incumbent, select_batch
 
-__all__ = ["replay_pool"]
+__all__ = ["replay_pool", "update_paths"]
 
 def replay_pool(make: Callable, surrogate: str, setting: AcquisitionSetting, space,
                 frame: pd.DataFrame, y: np.ndarray, init: Sequence[int], n_picks: int,
@@ -140,6 +140,27 @@ class _FitState:
         if not callable(fixed):
             return None
         return _fitted(fixed, X, y, ("fixed", self.base_key) + key, cache)
+
+
+def update_paths(model, plan) -> dict:
+    """What :class:`_FitState` does with ``model`` (an unfitted instance) under ``plan``:
+    read from the optional protocol members the model offers, never from its name.
+
+    Returns ``{"first_fit", "scheduled_refit", "between_refits", "reoptimize_on_doubling"}``:
+    ``first_fit`` is always ``"full"``; ``scheduled_refit`` is ``"warm_started"`` (the
+    model's ``warm_started()`` from its last fit) or ``"full"``; ``between_refits`` is
+    ``"fixed_hyperparameters"`` (``with_fixed_hyperparameters()`` refitted at every
+    refit step), ``"kept"`` (the last fit used as it was) or ``"none"`` (no cheap
+    updates: a full fit at every refit step).
+    """
+    cheap = plan.reoptimize_every is not None
+    warm = cheap and _WARM_REOPTIMIZE and callable(getattr(model, "warm_started", None))
+    fixed = callable(getattr(model, "with_fixed_hyperparameters", None))
+    return {"first_fit": "full",
+            "scheduled_refit": "warm_started" if warm else "full",
+            "between_refits": ("none" if not cheap else
+                               "fixed_hyperparameters" if fixed else "kept"),
+            "reoptimize_on_doubling": bool(getattr(model, "reoptimize_on_doubling", True))}
 
 
 def _schedule(steps_since: int, n_now: int, n_then: int, every: int,

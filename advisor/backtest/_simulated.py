@@ -133,11 +133,14 @@ def _updates_text(plan) -> str:
     if plan.reoptimize_every is None:
         return f"models refitted {every}, hyperparameters re-optimized at every refit"
     return (f"full fits (hyperparameters re-optimized) every {plan.reoptimize_every} "
-            "steps or when the training set has doubled since the last one (the neural "
-            f"process: every {plan.reoptimize_every} steps only), a Gaussian process's "
-            "from the last full fit's hyperparameters (one start, no restarts) after the "
-            "run's first fit; in between, a Gaussian "
-            f"process is refitted {every} with its hyperparameters held, the neural "
-            "process keeps its trained network and is conditioned on the run's trials, "
-            "and a model without such a path (forest, other neural networks) is kept as "
-            "it was")
+            "steps or when the training set has doubled since the last one (a model "
+            f"that says reoptimize_on_doubling = False: every {plan.reoptimize_every} "
+            "steps only); after the run's first fit, a model offering warm_started() "
+            "starts these from its last fit (a Gaussian process from its "
+            "hyperparameters, one start, no restarts; the deep ensemble and DNGO from "
+            "their trained weights, a tenth of their Adam steps; the SGHMC network "
+            "from its last draw, a chain a quarter as long); in between, a model "
+            f"offering with_fixed_hyperparameters() is refitted {every} with them held "
+            "(the GP: one Cholesky factorization; the neural process: its trained "
+            "network conditioned on the run's trials), and any other model is kept as "
+            "it was; updates_by_model says which path each backtested model took")

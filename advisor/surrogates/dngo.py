@@ -15,8 +15,9 @@ import numpy as np
 import torch
 
 from .base import ScaledSurrogate
-from .nets import (LatentSamplerMixin, NewCampaignMixin, StackedMLP, as_tensor, epochs_for,
-                   campaign_offset_variance, holdout_split, inner_variance_scale, torch_generator, torch_threads,
+from .nets import (LatentSamplerMixin, NewCampaignMixin, StackedMLP, WarmStartMixin,
+                   as_tensor, campaign_offset_variance, epochs_for, holdout_split,
+                   inner_variance_scale, torch_generator, torch_threads,
                    train_with_early_stopping)
 
 __all__ = ["DNGO", "blr_log_evidence", "blr_posterior"]
@@ -117,6 +118,10 @@ def blr_posterior(Phi, y, alpha: float, beta: float):
 
 
 # -- the surrogate ---------------------------------------------------------------------
+#: A warm-started fit's Adam steps, a fraction of the preset's (our choice; as the deep
+#: ensemble's).
+_WARM_FRACTION = 0.1
+
 _PRESETS = {
     # target_steps: optimizer steps aimed for; epochs are derived from it (nets.epochs_for)
     True: dict(target_steps=400, min_epochs=20, max_epochs=300, patience=12, batch_size=128),
@@ -124,7 +129,7 @@ _PRESETS = {
 }
 
 
-class DNGO(NewCampaignMixin, LatentSamplerMixin, ScaledSurrogate):
+class DNGO(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin, ScaledSurrogate):
     """Deep networks for global optimization (adaptive basis regression).
 
     A tanh network ``d -> 50 -> 50 -> 50 -> 1`` is fitted by mean squared error with
@@ -208,17 +213,38 @@ class DNGO(NewCampaignMixin, LatentSamplerMixin, ScaledSurrogate):
         self.lr = lr
         self.holdout = holdout
 
+    def warm_started(self) -> "DNGO":
+        """An unfitted copy whose network continues training from this fit's weights
+        for a tenth of the preset's Adam steps (at least 5 epochs), then takes the
+        Bayesian linear regression afresh (optional protocol member; the backtest's
+        scheduled re-fits within a run use it).  As the deep ensemble's
+        (:meth:`advisor.surrogates.ensemble.DeepEnsemble.warm_started`): only a training
+        set that extends this fit's is warm-started, with this fit's standardization
+        and held-out rows; any other gets a full fit; ``info_["warm_start"]``."""
+        return WarmStartMixin.warm_started(self)
+
+    def _warm_state(self) -> dict:
+        return {"state": self.net_.state_copy(), "val": self._val_idx.copy()}
+
     def _fit(self, Xs, ys):
         torch_threads()
         preset = _PRESETS[bool(self.quick)]
         rng = np.random.default_rng(self.seed)
         gen = torch_generator(rng)
         X, y = as_tensor(Xs), as_tensor(ys)
-        train, val = holdout_split(len(ys), self.holdout, rng)
+        warm = getattr(self, "_warm_now", None)
+        if warm is None:
+            train, val = holdout_split(len(ys), self.holdout, rng)
+            steps, min_epochs = preset["target_steps"], preset["min_epochs"]
+        else:
+            train, val = self._warm_split(len(ys), self.holdout, rng)
+            steps, min_epochs = int(math.ceil(_WARM_FRACTION * preset["target_steps"])), 5
         bs = min(self.batch_size or preset["batch_size"], len(train))
-        epochs = epochs_for(len(train), bs, preset["target_steps"], preset["min_epochs"],
-                            preset["max_epochs"])
+        epochs = epochs_for(len(train), bs, steps, min_epochs, preset["max_epochs"])
         self.net_ = StackedMLP(Xs.shape[1], 1, self.hidden, 1, self.activation, gen)
+        if warm is not None:
+            self.net_.load_members(warm["state"], torch.ones(1, dtype=torch.bool))
+        self._val_idx = np.asarray(val, dtype=int)
 
         def mse(out, target):
             return ((out[..., 0] - target) ** 2).mean(dim=-1)
@@ -242,7 +268,7 @@ class DNGO(NewCampaignMixin, LatentSamplerMixin, ScaledSurrogate):
                       "alpha": alpha, "beta": beta, "log_evidence": evidence,
                       "n_basis": int(Phi.shape[1]),
                       "variance_scale": float(self.variance_scale_),
-                      **self._campaign_info()}
+                      "warm_start": warm is not None, **self._campaign_info()}
 
     def _campaign_offset_var(self, Phi, ys, train, val):
         """Between-campaign offset variance (nets.campaign_offset_variance) from the

@@ -10,13 +10,20 @@ import torch
 from .base import ScaledSurrogate
 from .nets import (LatentSamplerMixin, MixtureOfComponentsMixin, NewCampaignMixin, StackedMLP,
                    as_tensor, campaign_offset_variance, epochs_for, holdout_split, inner_variance_scale, mixture_moments,
-                   torch_generator, torch_threads, train_with_early_stopping)
+                   torch_generator, torch_threads, train_with_early_stopping,
+                   WarmStartMixin)
 
 __all__ = ["DeepEnsemble", "gaussian_head"]
 
 #: Variance floor in standardized units, added after the softplus ([LPB2017] Sec. 2.2
 #: add 1e-6 for numerical stability; from memory).
 _VAR_FLOOR = 1e-6
+
+#: Budget of a warm-started fit (:meth:`DeepEnsemble.warm_started`): Adam steps from the
+#: previous fit's weights, a tenth of the preset's, same patience (our choice, chosen
+#: by measurement: ``tests/test_network_warm_start.py`` and ``benchmarks/assessment_cost.py``).
+_WARM_FRACTION = 0.1
+_WARM_MIN_EPOCHS = 5
 
 _PRESETS = {
     True: dict(members=5, target_steps=400, min_epochs=20, max_epochs=300, patience=12,
@@ -40,7 +47,8 @@ def _gaussian_nll(out, target):
     return (0.5 * (torch.log(var) + (target - mu) ** 2 / var)).mean(dim=-1)
 
 
-class DeepEnsemble(NewCampaignMixin, LatentSamplerMixin, MixtureOfComponentsMixin,
+class DeepEnsemble(WarmStartMixin, NewCampaignMixin, LatentSamplerMixin,
+                   MixtureOfComponentsMixin,
                    ScaledSurrogate):
     """Uniform mixture of independently trained networks with a Gaussian output.
 
@@ -122,6 +130,30 @@ class DeepEnsemble(NewCampaignMixin, LatentSamplerMixin, MixtureOfComponentsMixi
         self.lr = lr
         self.holdout = holdout
 
+    def warm_started(self) -> "DeepEnsemble":
+        """An unfitted copy that continues training from this fit's weights (optional
+        protocol member; the backtest's scheduled re-fits within a run use it).
+
+        Fitting the copy on a training set whose first rows are this fit's (a campaign
+        that has grown) keeps this fit's input and output standardization (so the
+        networks compute the same function before the first step), keeps its held-out
+        rows held out, holds out the same fraction of the new rows, and trains every
+        member for a tenth of the preset's Adam steps (at least 5 epochs) with the
+        same early stopping.  Continuing from the current weights when the data grow
+        is common practice for networks in a sequential optimization loop (Snoek et al.
+        2015, Scalable Bayesian optimization using deep neural networks, ICML, retrain
+        their network as the data grow; that they warm-start is our reading, from
+        memory).  Rows the previous fit trained on are never held out, so the early
+        stopping and the variance scale see only unseen rows.  Any other training set
+        (not an extension of this fit's) gets a full fit.  ``info_["warm_start"]`` says
+        which was done.  The warm state is not a constructor argument:
+        :func:`sklearn.base.clone` of the copy is a plain unfitted ensemble.
+        """
+        return WarmStartMixin.warm_started(self)
+
+    def _warm_state(self) -> dict:
+        return {"state": self.net_.state_copy(), "val": self._val_idx.copy()}
+
     def _fit(self, Xs, ys):
         torch_threads()
         preset = _PRESETS[bool(self.quick)]
@@ -131,11 +163,20 @@ class DeepEnsemble(NewCampaignMixin, LatentSamplerMixin, MixtureOfComponentsMixi
         rng = np.random.default_rng(self.seed)
         gen = torch_generator(rng)
         X, y = as_tensor(Xs), as_tensor(ys)
-        train, val = holdout_split(len(ys), self.holdout, rng)
+        warm = getattr(self, "_warm_now", None)
+        if warm is None:
+            train, val = holdout_split(len(ys), self.holdout, rng)
+            steps, min_epochs = preset["target_steps"], preset["min_epochs"]
+        else:  # old held-out rows stay out; the new rows are split at the same fraction
+            train, val = self._warm_split(len(ys), self.holdout, rng)
+            steps = int(math.ceil(_WARM_FRACTION * preset["target_steps"]))
+            min_epochs = _WARM_MIN_EPOCHS
         bs = min(preset["batch_size"], len(train))
-        epochs = epochs_for(len(train), bs, preset["target_steps"], preset["min_epochs"],
-                            preset["max_epochs"])
+        epochs = epochs_for(len(train), bs, steps, min_epochs, preset["max_epochs"])
         self.net_ = StackedMLP(Xs.shape[1], 2, self.hidden, n_members, self.activation, gen)
+        if warm is not None:
+            self.net_.load_members(warm["state"], torch.ones(n_members, dtype=torch.bool))
+        self._val_idx = np.asarray(val, dtype=int)
         train_info = train_with_early_stopping(
             self.net_, _gaussian_nll, X, y, train, val, batch_size=bs, epochs=epochs,
             patience=preset["patience"], lr=self.lr, generator=gen, weight_decay=1e-4)
@@ -155,6 +196,7 @@ class DeepEnsemble(NewCampaignMixin, LatentSamplerMixin, MixtureOfComponentsMixi
                       "early_stopping_epoch": train_info["best_epoch"],
                       "held_out_rows": int(len(val)), "adversarial_training": False,
                       "variance_scale": float(self.variance_scale_),
+                      "warm_start": warm is not None,
                       **self._campaign_info()}
 
     def member_moments_s(self, Xs):

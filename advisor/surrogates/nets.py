@@ -31,7 +31,7 @@ __all__ = ["torch_threads", "torch_generator", "StackedMLP", "mixture_moments",
            "holdout_split", "epoch_batches", "epochs_for", "as_tensor",
            "LatentSamplerMixin", "THREADS_ENV", "train_with_early_stopping",
            "inner_variance_scale", "SCALE_PRIOR_DF", "campaign_offset_variance",
-           "CAMPAIGN_PRIOR_DF", "NewCampaignMixin"]
+           "CAMPAIGN_PRIOR_DF", "NewCampaignMixin", "WarmStartMixin"]
 
 #: Environment variable read by :func:`torch_threads`.
 THREADS_ENV = "ADVISOR_TORCH_THREADS"
@@ -519,3 +519,71 @@ class NewCampaignMixin:
         """Facts for ``info_``: the offset sd in the objective's units."""
         return {"between_campaign_sd": float(math.sqrt(self.campaign_offset_var_)
                                              * getattr(self, "y_scale_", 1.0))}
+
+
+class WarmStartMixin:
+    """``warm_started()`` for a network :class:`~advisor.surrogates.base.ScaledSurrogate`:
+    an unfitted copy that, fitted on a training set whose first rows are this fit's
+    (a campaign that has grown), keeps this fit's input and output standardization (so
+    the network computes the same function before its first step) and hands
+    ``_fit`` the model's own warm state (``self._warm_now``: the dict from
+    ``_warm_state()`` plus ``"y"``, the old rows' objective); on any other training set
+    ``_warm_now`` is None and the fit is the model's full fit.  Subclasses implement
+    ``_warm_state() -> dict`` and use ``_warm_now`` in ``_fit``; list this mixin before
+    :class:`NewCampaignMixin`.  The warm state is not a constructor argument, so
+    :func:`sklearn.base.clone` of the copy is a plain unfitted model.
+    """
+
+    def warm_started(self):
+        """An unfitted copy that continues from this fit (see the class docstring and
+        the model's ``_fit``)."""
+        from sklearn.base import clone
+
+        if not hasattr(self, "_train_y"):
+            raise ValueError(f"warm_started() needs a fitted {type(self).__name__}")
+        new = clone(self)
+        new._warm = dict(self._warm_state(), X=self._train_X.copy(), y=self._train_y.copy(),
+                         scaling=(self.x_mean_, self.x_scale_, self.y_mean_, self.y_scale_))
+        return new
+
+    def _warm_prefix(self, X, y):
+        warm = getattr(self, "_warm", None)
+        if warm is None:
+            return None
+        X, y = np.asarray(X, dtype=float), np.asarray(y, dtype=float).ravel()
+        n0 = len(warm["y"])
+        if (X.ndim != 2 or X.shape[1] != warm["X"].shape[1] or len(y) < n0
+                or not np.array_equal(X[:n0], warm["X"])
+                or not np.array_equal(y[:n0], warm["y"])):
+            return None
+        return warm
+
+    def fit(self, X, y, groups=None):
+        """Fit on ``X``, ``y`` (``groups``: campaign labels, see
+        :class:`NewCampaignMixin`)."""
+        self._warm_now = self._warm_prefix(X, y)
+        self._train_X = np.asarray(X, dtype=float).copy()
+        self._train_y = np.asarray(y, dtype=float).ravel().copy()
+        return super().fit(X, y, groups)
+
+    def _warm_split(self, n: int, fraction: float, rng: np.random.Generator):
+        """(train, held-out) rows of a warm fit with early stopping: the previous
+        fit's held-out rows (``_warm_state()["val"]``) stay out, rows it trained on
+        never go out, and ``round(fraction * new rows)`` of the new rows are held out
+        (none while the previous fit had no held-out rows and ``n < 15``, the
+        threshold of :func:`holdout_split`'s defaults)."""
+        warm = self._warm_now
+        new_rows = np.arange(len(warm["y"]), n)
+        k = int(round(fraction * len(new_rows))) if len(warm["val"]) or n >= 15 else 0
+        val = np.union1d(warm["val"], np.sort(rng.permutation(new_rows)[:k])).astype(int)
+        return np.setdiff1d(np.arange(n), val), val
+
+    def _scale_fit(self, X, y):
+        warm = getattr(self, "_warm_now", None)
+        if warm is None:
+            return super()._scale_fit(X, y)
+        from .base import check_fit_inputs
+
+        X, y = check_fit_inputs(X, y)
+        self.x_mean_, self.x_scale_, self.y_mean_, self.y_scale_ = warm["scaling"]
+        return (X - self.x_mean_) / self.x_scale_, (y - self.y_mean_) / self.y_scale_
