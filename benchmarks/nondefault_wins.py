@@ -44,6 +44,8 @@ truly wins.  Three parts, each a section of the results file:
   ``advisor/backtest/_gp_standins.py``) and ``--section`` the results section (one per
   construction: ``unit`` is the default gp+forest, ``unit_gp_hyper``, ``unit_gp_sum``,
   ``unit_gp_sum_ml`` one class each); each log's row is saved as it finishes.
+* ``power`` (in ``benchmarks/nondefault_power.py``, its own command line): ``unit``'s
+  backtest with the quick grid and more runs per log, per stand-in construction.
 * ``standins`` (no runs): :func:`standin_summary` of the unit-like sections against
   ``truth``, written to ``standins_summary``.
 """
