@@ -330,8 +330,12 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
     # gain; real gains between settings can be far smaller in that unit
     # (benchmarks/nondefault_wins.py: 0.002 on Levy-3 where UCB truly wins), and the
     # kept default carries its measured real outcome (REAL_DETECTION).
-    ptxt = "" if power is None else (f"; power to find a 0.1 AUC gain {power:.2f}, a large "
-                                     "gain: smaller real gains can go unseen")
+    pfinal = decision.get("power_final_at_0.1")
+    ptxt = "" if power is None else (
+        f"; power to find a 0.1 AUC gain {power:.2f}, a large gain: smaller real gains "
+        "can go unseen" + ("" if pfinal is None else
+                           f" (power for a gain of 0.1 in final regret, random search "
+                           f"= 1: {pfinal:.2f})"))
     rd = REAL_DETECTION
     ps = PERFECT_STANDINS
     real = (f"; on {rd['logs']} benchmark logs where another setting truly beat the "
@@ -423,6 +427,7 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
         "p_values": {c["label"]: c["p_value"] for c in decision.get("comparisons", [])},
         "p_holm": {c["label"]: c["p_holm"] for c in decision.get("comparisons", [])},
         "power_at_0.1": decision.get("power_at_0.1"),
+        "power_final_at_0.1": decision.get("power_final_at_0.1"),
         "real_detection": {**REAL_DETECTION, "perfect_standins": {
             k: (list(v) if isinstance(v, tuple) else v)
             for k, v in PERFECT_STANDINS.items()}}}

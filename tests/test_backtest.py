@@ -625,3 +625,42 @@ def test_class_rule_keeps_its_level_and_finds_a_gain_present_everywhere():
 def _strata_call(rng, a, b):
     values, strata = _paired_by_class(rng, 12, a, b)
     return values, "EI xi=0.01", 0.05, strata
+
+
+def _synthetic_backtest(random_final, spread, seed=0):
+    # 8 stand-ins x 3 starts, two settings with no true difference; AUCs nearly equal,
+    # final regrets spread by `spread` in the stand-in's range unit
+    rng = np.random.default_rng(seed)
+    units = [f"f{i}" for i in range(8)]
+    runs = {lab: [] for lab in ("EI xi=0.01", "UCB beta=4")}
+    for u in units:
+        for s in range(3):
+            base = 0.5 + spread * rng.standard_normal()
+            for lab in runs:
+                runs[lab].append({"unit": u, "seed_index": s,
+                                  "auc": 0.3 + 1e-3 * rng.standard_normal(),
+                                  "final_regret": base + spread * rng.standard_normal()})
+    results = [{"surrogate": "m", "error": None, "label": lab,
+                "acquisition": {"name": lab.split()[0].lower()}, "runs": r}
+               for lab, r in runs.items()]
+    return {"simulated": {"results": results,
+                          "functions": [{"id": u, "class": "gp"} for u in units],
+                          "random": {"per_unit_mean_final_regret": {u: random_final
+                                                                    for u in units}}}}
+
+
+def test_power_in_the_real_outcomes_unit_divides_by_random_orders_final_regret():
+    # The power for a 0.1 gain in final regret over random order's (random search = 1)
+    # is read from each run's final regret divided by random's mean on its stand-in: the
+    # same paired spread is large against a random mean of 1 and tiny against 100.
+    from advisor.backtest._choice import _decide
+
+    wide = _decide(_synthetic_backtest(random_final=1.0, spread=0.5), "m", seed=0)
+    narrow = _decide(_synthetic_backtest(random_final=100.0, spread=0.5), "m", seed=0)
+    assert wide["power_at_0.1"] > 0.9 and narrow["power_at_0.1"] > 0.9   # AUC: tiny spread
+    assert wide["power_final_at_0.1"] < 0.3
+    assert narrow["power_final_at_0.1"] > 0.9
+    from advisor import decision
+
+    text = decision._acquisition_statement("backtest", dict(wide, alpha=0.05), "m", {})
+    assert f"final regret, random search = 1: {wide['power_final_at_0.1']:.2f}" in text
