@@ -332,10 +332,10 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
     # kept default carries its measured real outcome (REAL_DETECTION).
     pfinal = decision.get("power_final_at_0.1")
     ptxt = "" if power is None else (
-        f"; power to find a 0.1 AUC gain {power:.2f}, a large gain: smaller real gains "
-        "can go unseen" + ("" if pfinal is None else
-                           f" (power for a gain of 0.1 in final regret, random search "
-                           f"= 1: {pfinal:.2f})"))
+        f"; power to find a 0.1 AUC gain {power:.2f}, a large gain" +
+        ("" if pfinal is None else f", but {pfinal:.2f} for a gain of 0.1 in final "
+                                   "regret (random search = 1)")
+        + ": smaller real gains can go unseen")
     rd = REAL_DETECTION
     ps = PERFECT_STANDINS
     real = (f"; on {rd['logs']} benchmark logs where another setting truly beat the "

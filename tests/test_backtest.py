@@ -663,4 +663,5 @@ def test_power_in_the_real_outcomes_unit_divides_by_random_orders_final_regret()
     from advisor import decision
 
     text = decision._acquisition_statement("backtest", dict(wide, alpha=0.05), "m", {})
-    assert f"final regret, random search = 1: {wide['power_final_at_0.1']:.2f}" in text
+    assert (f"but {wide['power_final_at_0.1']:.2f} for a gain of 0.1 in final regret "
+            "(random search = 1)") in text
