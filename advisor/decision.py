@@ -279,6 +279,44 @@ def acquisition_strength(decision: dict) -> tuple[str, str]:
     return "none", "no setting beats the default on these logs; the default stands"
 
 
+def baseline_statement(vb: dict | None, trials: int | None) -> str | None:
+    """The recommended setting against random and grid search, in one clause.
+
+    Model-based search is worth its trouble only if it ends better than the classic
+    designs would; the backtest tests that on the same runs
+    (:func:`advisor.backtest.baseline_test`) instead of taking it for granted.
+    """
+    if not vb or not vb.get("comparisons"):
+        return None
+    where = f" within {trials} trials" if trials else ""
+    parts, lost = [], []
+    for name in ("random search", "grid search"):
+        rows = {r["metric"]: r for r in vb["comparisons"] if r["baseline"] == name}
+        if not rows:
+            continue
+        fin, auc = rows.get("final"), rows.get("auc")
+        won = [m for m, r in (("AUC", auc), ("final regret", fin))
+               if r is not None and r["significant"]]
+        short = name.split()[0]
+        ratio = "" if fin is None or fin.get("ratio_of_means") is None else (
+            f"final regret {fin['ratio_of_means']:.2f}x {short}'s; ")
+        ps = ", ".join(f"{m} {r['p_holm']:.2g}" for m, r in
+                       (("AUC", auc), ("final", fin)) if r is not None)
+        verdict = f"beats {name} in {' and '.join(won)}" if won else \
+            f"does not beat {name}"
+        if not won:
+            lost.append(name)
+        parts.append(f"{verdict} ({ratio}adjusted p: {ps})")
+    text = (f"on the same simulated runs {vb.get('setting')} " + "; ".join(parts)
+            + f" (one-sided paired tests, Holm over {len(vb['comparisons'])}, level "
+            f"{vb['alpha']})")
+    if "random search" in lost:
+        text += (f": on these stand-ins model-based search is not shown to pay{where}, "
+                 "so a random or space-filling design is as well supported by this "
+                 "evidence")
+    return text
+
+
 def _setting_dict(backtest_out, label):
     for st in backtest_out.get("settings") or []:
         if st.get("label") == label:
@@ -391,6 +429,12 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
             acq = _setting_dict(backtest_out, decision["chosen"]) or acq
     statement = _acquisition_statement(source, decision, leader, backtest_out)
     reasons.append("acquisition: " + statement)
+    vs_base = baseline_statement(decision.get("versus_baselines"),
+                                 ((backtest_out or {}).get("simulated") or {}).get("budget")
+                                 if decision.get("experiment") == "simulated" else None
+                                 ) if source == "backtest" else None
+    if vs_base:
+        reasons.append("baselines: " + vs_base)
     acq_strength = acquisition_strength(decision) if source == "backtest" else None
     if acq_strength is not None:
         reasons.append(f"strength of the acquisition evidence: {acq_strength[0]} "
@@ -428,6 +472,8 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
         "p_holm": {c["label"]: c["p_holm"] for c in decision.get("comparisons", [])},
         "power_at_0.1": decision.get("power_at_0.1"),
         "power_final_at_0.1": decision.get("power_final_at_0.1"),
+        "versus_baselines": decision.get("versus_baselines"),
+        "baseline_statement": vs_base,
         "real_detection": {**REAL_DETECTION, "perfect_standins": {
             k: (list(v) if isinstance(v, tuple) else v)
             for k, v in PERFECT_STANDINS.items()}}}

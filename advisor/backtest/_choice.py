@@ -32,7 +32,8 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
             break
     if part is None:
         return {"experiment": None, "chosen": None, "beats_default": False,
-                "comparisons": [], "power_at_0.1": None, "power_final_at_0.1": None}
+                "comparisons": [], "power_at_0.1": None, "power_final_at_0.1": None,
+                "versus_baselines": None}
     values = {}
     for r in bt[part]["results"]:
         if r["surrogate"] != surrogate or r["error"] or r["acquisition"]["name"] == "random":
@@ -73,6 +74,40 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
                                "random order's mean final regret on the same stand-in or "
                                "campaign (random search = 1, the unit real campaigns are "
                                "judged in), after the runs' own number of trials")
+    out["versus_baselines"] = _versus_baselines(bt[part], surrogate, out.get("chosen"))
+    return out
+
+
+def _versus_baselines(sec: dict, surrogate: str, label: str | None) -> dict | None:
+    """The chosen setting against random search (its shuffles after the same start) and
+    grid search (the same start index's design), paired by run, in AUC and
+    final regret (:func:`._decision.baseline_test`); None without the baselines."""
+    from ._decision import baseline_test
+
+    res = next((r for r in sec.get("results", []) if r["surrogate"] == surrogate
+                and r["label"] == label and not r["error"]), None)
+    rnd = sec.get("random") or {}
+    if res is None or not rnd.get("per_start_runs"):
+        return None
+    key = lambda run: (run["unit"], run["seed_index"])  # noqa: E731
+    runs = {"auc": {key(r): r["auc"] for r in res["runs"]},
+            "final": {key(r): r["final_regret"] for r in res["runs"]
+                      if r.get("final_regret") is not None}}
+
+    def per_start(field):
+        return {(u, s): v[field] for u, starts in rnd["per_start_runs"].items()
+                for s, v in enumerate(starts)}
+
+    baselines = {"random search": {"auc": per_start("auc"),
+                                   "final": per_start("final_regret")}}
+    grid = (sec.get("grid") or {}).get("runs") or []
+    if grid:
+        baselines["grid search"] = {
+            "auc": {key(g): g["auc"] for g in grid},
+            "final": {key(g): g["final_regret"] for g in grid
+                      if g.get("final_regret") is not None}}
+    out = baseline_test(runs, baselines)
+    out["setting"] = label
     return out
 
 

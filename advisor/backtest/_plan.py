@@ -39,10 +39,10 @@ def plan_for(quick: bool, **changes) -> BacktestPlan:
     """The quick or full plan, with any field overridden by keyword."""
     base = (BacktestPlan(replay_seeds=1, replay_max_picks=10, refit_every=1,
                          reoptimize_every=5, random_orders=32, sim_functions=8,
-                         sim_seeds=3, sim_extra_candidates=200, sim_max_budget=12)
+                         sim_seeds=3, sim_extra_candidates=200, sim_max_budget=30)
             if quick else BacktestPlan(replay_seeds=2, replay_max_picks=24, refit_every=1,
                                        reoptimize_every=5, sim_functions=8, sim_seeds=4,
-                                       sim_extra_candidates=400, sim_max_budget=20))
+                                       sim_extra_candidates=400, sim_max_budget=30))
     return dataclasses.replace(base, **changes)
 
 
