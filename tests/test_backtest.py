@@ -727,3 +727,38 @@ def test_baseline_test_finds_a_setting_that_truly_beats_random_search_and_says_s
     text = decision.baseline_statement(dict(lost, setting="EI xi=0.01"), 12)
     assert "does not beat random search" in text and "not shown to pay within 12 trials" in text
     assert "not shown to pay" not in decision.baseline_statement(dict(won, setting="x"), 12)
+
+
+def test_the_decision_carries_the_baseline_test_of_its_chosen_setting_into_the_report():
+    # Wiring: each run is paired with random search's shuffles from its own start
+    # (random.per_start_runs[unit][seed_index]) and with the grid design of its start
+    # index; a setting far worse than both is reported as not beating them, and the
+    # PDF's "How it was decided" prints the sentence.
+    from types import SimpleNamespace
+
+    from advisor import decision
+    from advisor.backtest._choice import _decide
+    from advisor.report.sections.recommendation import decision_texts
+
+    bt = _synthetic_backtest(random_final=1.0, spread=0.05)
+    sim = bt["simulated"]
+    rng = np.random.default_rng(8)
+    units = sorted({r["unit"] for r in sim["results"][0]["runs"]})
+    sim["random"]["per_start_runs"] = {
+        u: [{"auc": list(rng.uniform(0.0, 0.1, 32)),
+             "final_regret": list(rng.uniform(0.0, 0.1, 32))} for _ in range(3)]
+        for u in units}
+    sim["grid"] = {"runs": [{"unit": u, "seed_index": s, "auc": 0.05, "final_regret": 0.05}
+                            for u in units for s in range(3)]}
+    dec = _decide(bt, "m", seed=0)
+    vb = dec["versus_baselines"]
+    assert vb["setting"] == dec["chosen"]
+    assert {(r["baseline"], r["metric"]): r["runs"] for r in vb["comparisons"]} == {
+        (b, m): 24 for b in ("random search", "grid search") for m in ("auc", "final")}
+    assert vb["beats"] == {"random search": {"auc": False, "final": False},
+                           "grid search": {"auc": False, "final": False}}
+    text = decision.baseline_statement(vb, 30)
+    view = SimpleNamespace(d={"recommendation": {"acquisition_test": {
+        "baseline_statement": text}}})
+    out = " ".join(decision_texts(view))
+    assert "Against random and grid search." in out and "not shown to pay within 30" in out

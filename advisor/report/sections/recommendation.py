@@ -82,7 +82,8 @@ def _acq_source_text(rec: dict) -> str:
 
 def decision_texts(v: _View) -> list[str]:
     """How the recommendation was decided (paragraph markup, one per item): the
-    acquisition evidence with its test, level and power; the tie-break; the pair; the
+    acquisition evidence with its test, level and power; the recommended setting
+    against random and grid search; the tie-break; the pair; the
     NLL/CRPS disagreement; the validation scheme that decided."""
     rec = v.d.get("recommendation") or {}
     out = []
@@ -91,6 +92,9 @@ def decision_texts(v: _View) -> list[str]:
         word = rec.get("acquisition_evidence")
         extra = f" Evidence word: <i>{_e(word)}</i>." if word else ""
         out.append(f"<b>Acquisition.</b> {_e(st)}.{extra}")
+    bs = (rec.get("acquisition_test") or {}).get("baseline_statement")
+    if bs:
+        out.append(f"<b>Against random and grid search.</b> {_e(bs[0].upper() + bs[1:])}.")
     tb = rec.get("tie_break")
     if tb:
         out.append(f"<b>Tie.</b> {_e(', '.join(tb.get('tied') or []))} are statistically "
