@@ -53,12 +53,12 @@ def test_builtin_encoding_matches_each_class():
     # The registry's encodings (read without importing a model module) are the classes'
     # own input_encoding ("onehot" when a class declares none, the protocol's default,
     # advisor.surrogates.base); any other name gets None (a user model is asked itself).
-    from advisor.surrogates import builtin_encoding
+    from advisor.surrogates import _builtin_encoding
 
     for name in BUILTINS:
         model = make_surrogate(name, quick=True)
-        assert builtin_encoding(name) == getattr(model, "input_encoding", "onehot")
-    assert builtin_encoding("sklearn.linear_model:BayesianRidge") is None
+        assert _builtin_encoding(name) == getattr(model, "input_encoding", "onehot")
+    assert _builtin_encoding("sklearn.linear_model:BayesianRidge") is None
 
 
 def test_encodings_and_versions_import_no_torch():

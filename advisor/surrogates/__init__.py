@@ -56,7 +56,7 @@ BUILTIN: dict[str, tuple[str, str]] = {
 _BUILTIN_ENCODING = {"forest": "ordinal"}
 
 
-def builtin_encoding(name: str) -> str | None:
+def _builtin_encoding(name: str) -> str | None:
     """Input encoding of built-in model ``name`` without importing it; None for any
     other name (a user model: ask the model itself)."""
     return _BUILTIN_ENCODING.get(name, "onehot") if name in BUILTIN else None
