@@ -2,6 +2,7 @@
 
     python benchmarks/run.py                 # both targets, writes benchmarks/results/speed.json
     python benchmarks/run.py --only 500      # just the 500-trial quick assessment
+                                             # (its entry replaced, the other kept)
 
 Targets (not timed tests; this script reports against them):
 
@@ -98,7 +99,8 @@ def main(argv=None):
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--out", default=str(ROOT / "benchmarks" / "results" / "speed.json"))
     args = ap.parse_args(argv)
-    cases = [("trials500", log_500, 60, None), ("trials5000x20", big_log, 300, 4.0)]
+    cases = cases_all = [("trials500", log_500, 60, None),
+                         ("trials5000x20", big_log, 300, 4.0)]
     if args.only:
         cases = [c for c in cases if c[0] == f"trials{args.only}" or c[0].startswith(f"trials{args.only}x")]
     results = []
@@ -116,8 +118,17 @@ def main(argv=None):
                 print("    stages: " + ", ".join(f"{k} {v:.1f}" for k, v in r["timing"].items()))
     machine = {"cpus": os.cpu_count(), "python": sys.version.split()[0],
                "platform": sys.platform, "memory_gb": psutil.virtual_memory().total / 2**30}
-    Path(args.out).parent.mkdir(parents=True, exist_ok=True)
-    Path(args.out).write_text(json.dumps({"machine": machine, "results": results}, indent=2))
+    out = Path(args.out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    if args.only and out.exists():
+        # --only replaces its own case's entry and keeps the other case's as it was
+        ran = {r["case"] for r in results}
+        kept = [r for r in json.loads(out.read_text()).get("results", [])
+                if r.get("case") not in ran]
+        order = [c[0] for c in cases_all]
+        results = sorted(kept + results,
+                         key=lambda r: order.index(r["case"]) if r["case"] in order else 99)
+    out.write_text(json.dumps({"machine": machine, "results": results}, indent=2))
     print(f"wrote {args.out}")
 
 
