@@ -2,6 +2,7 @@
 
     python benchmarks/run.py                 # both targets, writes benchmarks/results/speed.json
     python benchmarks/run.py --only 500      # just the 500-trial quick assessment
+                                             # (its entry replaced, the other kept)
 
 Targets (not timed tests; this script reports against them):
 
@@ -13,7 +14,10 @@ Targets (not timed tests; this script reports against them):
 
 Each run is the real command (`python -m advisor assess ... --quick`) in a subprocess;
 peak memory is the largest sum of resident set sizes over the process and its workers,
-sampled every 0.2 s with psutil.
+sampled every 0.2 s with psutil, and so are the CPU seconds (user + system, summed over
+the process and its workers; ``cpu_seconds``) and the 1-minute load average at the start
+and the end (``load_average_start`` / ``_end``): on a shared machine the wall time
+depends on the other load, the CPU seconds much less.
 """
 
 from __future__ import annotations
@@ -60,15 +64,25 @@ def measure(cmd: list[str]) -> dict:
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     ps = psutil.Process(proc.pid)
     peak = 0
+    cpu = {}  # pid -> last seen user + system seconds (a worker's last 0.2 s may be missed)
+    load0 = os.getloadavg()[0]
     while proc.poll() is None:
         try:
             procs = [ps] + ps.children(recursive=True)
             peak = max(peak, sum(p.memory_info().rss for p in procs if p.is_running()))
+            for p in procs:
+                try:
+                    t = p.cpu_times()
+                    cpu[p.pid] = t.user + t.system
+                except psutil.Error:
+                    pass
         except psutil.Error:
             pass
         time.sleep(0.2)
     out, err = proc.communicate()
     return {"wall_seconds": time.perf_counter() - t0, "peak_rss_gb": peak / 2**30,
+            "cpu_seconds": sum(cpu.values()),
+            "load_average_start": load0, "load_average_end": os.getloadavg()[0],
             "returncode": proc.returncode, "stderr": err.strip()[-2000:]}
 
 
@@ -98,7 +112,8 @@ def main(argv=None):
     ap.add_argument("--jobs", type=int, default=2)
     ap.add_argument("--out", default=str(ROOT / "benchmarks" / "results" / "speed.json"))
     args = ap.parse_args(argv)
-    cases = [("trials500", log_500, 60, None), ("trials5000x20", big_log, 300, 4.0)]
+    cases = cases_all = [("trials500", log_500, 60, None),
+                         ("trials5000x20", big_log, 300, 4.0)]
     if args.only:
         cases = [c for c in cases if c[0] == f"trials{args.only}" or c[0].startswith(f"trials{args.only}x")]
     results = []
@@ -107,6 +122,7 @@ def main(argv=None):
             r = run_case(name, fn, lim_s, lim_gb, ["--jobs", str(args.jobs)], Path(tmp))
             results.append(r)
             print(f"{name:16s} wall {r['wall_seconds']:7.1f} s (target {lim_s} s)  "
+                  f"CPU {r['cpu_seconds']:7.1f} s  load {r['load_average_start']:.1f}  "
                   f"peak {r['peak_rss_gb']:5.2f} GB"
                   + (f" (target {lim_gb} GB)" if lim_gb else "")
                   + f"  exit {r['returncode']}  {'OK' if r['meets_target'] else 'MISSED'}")
@@ -116,8 +132,17 @@ def main(argv=None):
                 print("    stages: " + ", ".join(f"{k} {v:.1f}" for k, v in r["timing"].items()))
     machine = {"cpus": os.cpu_count(), "python": sys.version.split()[0],
                "platform": sys.platform, "memory_gb": psutil.virtual_memory().total / 2**30}
-    Path(args.out).parent.mkdir(parents=True, exist_ok=True)
-    Path(args.out).write_text(json.dumps({"machine": machine, "results": results}, indent=2))
+    out = Path(args.out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    if args.only and out.exists():
+        # --only replaces its own case's entry and keeps the other case's as it was
+        ran = {r["case"] for r in results}
+        kept = [r for r in json.loads(out.read_text()).get("results", [])
+                if r.get("case") not in ran]
+        order = [c[0] for c in cases_all]
+        results = sorted(kept + results,
+                         key=lambda r: order.index(r["case"]) if r["case"] in order else 99)
+    out.write_text(json.dumps({"machine": machine, "results": results}, indent=2))
     print(f"wrote {args.out}")
 
 

@@ -48,6 +48,39 @@ def test_builtin_clone_and_params(name):
         check_set_params(name, model)
 
 
+
+def test_builtin_encoding_matches_each_class():
+    # The registry's encodings (read without importing a model module) are the classes'
+    # own input_encoding ("onehot" when a class declares none, the protocol's default,
+    # advisor.surrogates.base); any other name gets None (a user model is asked itself).
+    from advisor.surrogates import _builtin_encoding
+
+    for name in BUILTINS:
+        model = make_surrogate(name, quick=True)
+        assert _builtin_encoding(name) == getattr(model, "input_encoding", "onehot")
+    assert _builtin_encoding("sklearn.linear_model:BayesianRidge") is None
+
+
+def test_encodings_and_versions_import_no_torch():
+    # Choosing every built-in's encoding and recording the library versions must not
+    # import torch into the main process (seconds per run; the networks are fitted in
+    # worker processes); the torch version is still recorded, from its distribution.
+    import subprocess
+    import sys
+    from importlib import metadata
+
+    code = ("import sys, json; from advisor.surrogates import surrogate_names; "
+            "from advisor.assessment._folds import _encoding_of; "
+            "from advisor.assessment._result import _package_versions; "
+            "enc = {n: _encoding_of(n) for n in surrogate_names()}; "
+            "print(json.dumps([enc, _package_versions(), 'torch' in sys.modules]))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True)
+    enc, versions, torch_loaded = json.loads(out.stdout)
+    assert torch_loaded is False
+    assert enc["forest"] == "ordinal" and enc["gp"] == "onehot"
+    assert versions["torch"] == metadata.version("torch")
+
 NEURAL = {"dngo", "bnn", "ensemble", "neural_process"}  # two network fits each: seconds
 
 

@@ -11,7 +11,7 @@ import numpy as np
 from ..errors import UsageError
 from ..scoring import score_predictions
 from ..execution import task_seed
-from ..surrogates import check_predictions, make_surrogate
+from ..surrogates import _builtin_encoding, check_predictions, make_surrogate
 
 
 def _fit_predict_task(name: str, fold: int, X, y, groups, train, test, seed: int,
@@ -53,6 +53,9 @@ def _fit_predict_task(name: str, fold: int, X, y, groups, train, test, seed: int
 
 
 def _encoding_of(name: str) -> str:
+    known = _builtin_encoding(name)
+    if known is not None:
+        return known
     try:
         model = make_surrogate(name, seed=0, quick=True)
     except UsageError:

@@ -68,14 +68,22 @@ class Assessment:
 
 
 def _package_versions() -> dict:
+    """Versions of the libraries the run used: the loaded module's ``__version__``, or
+    for one this process never imported (torch, when every network ran in a worker
+    process) its installed distribution's version, read without importing it (an
+    import of torch costs seconds)."""
+    from importlib import metadata
+
     out = {"advisor": __version__, "python": platform.python_version()}
-    for mod in ("numpy", "scipy", "sklearn", "pandas", "torch", "joblib"):
+    for mod, dist in (("numpy", "numpy"), ("scipy", "scipy"), ("sklearn", "scikit-learn"),
+                      ("pandas", "pandas"), ("torch", "torch"), ("joblib", "joblib")):
         m = sys.modules.get(mod)
-        if m is None:
-            try:
-                m = __import__(mod)
-            except ImportError:
-                continue
-        out["scikit-learn" if mod == "sklearn" else mod] = getattr(m, "__version__", "?")
+        if m is not None:
+            out[dist] = getattr(m, "__version__", "?")
+            continue
+        try:
+            out[dist] = metadata.version(dist)
+        except metadata.PackageNotFoundError:
+            continue
     return out
 

@@ -225,17 +225,28 @@ def _model_uncertainty(make, name, seed, quick, X, y, space, encoding, *, n_refi
     Returns ``{"first": (B, d), "total": (B, d), "subsample_size", "refits",
     "refits_used"}``; refits that fail or whose mean is flat are dropped.
     """
+    tasks = _refit_tasks(make, name, seed, quick, X, y, space, encoding,
+                         n_refits=n_refits, n_base=n_base, warm=warm)
+    results = (executor or Executor()).map(_safe_refit, tasks, label="relevance refits")
+    return _refit_summary(results, len(y), len(space), n_refits)
+
+
+def _refit_tasks(make, name, seed, quick, X, y, space, encoding, *, n_refits, n_base,
+                 warm=None) -> list[tuple]:
+    """The :func:`_safe_refit` tasks of :func:`_model_uncertainty`."""
     n = len(y)
     m = max(2, n // 2)
     rng = np.random.default_rng(task_seed(seed, "relevance", "half-samples"))
     subsets = [np.sort(rng.permutation(n)[:m]) for _ in range(n_refits)]
-    tasks = [(make, name, task_seed(seed, "relevance", "refit", b), quick, X[idx], y[idx],
-              space, encoding, n_base, warm) for b, idx in enumerate(subsets)]
-    ex = executor or Executor()
-    results = ex.map(_safe_refit, tasks, label="relevance refits")
+    return [(make, name, task_seed(seed, "relevance", "refit", b), quick, X[idx], y[idx],
+             space, encoding, n_base, warm) for b, idx in enumerate(subsets)]
+
+
+def _refit_summary(results, n: int, d: int, n_refits: int) -> dict:
+    """:func:`_model_uncertainty`'s result from its tasks' results."""
+    m = max(2, n // 2)
     ok = [r for r in results if r is not None
           and np.all(np.isfinite(r[0])) and np.all(np.isfinite(r[1]))]
-    d = len(space)
     first = np.array([r[0] for r in ok]).reshape(-1, d)
     total = np.array([r[1] for r in ok]).reshape(-1, d)
     return {"first": first, "total": total, "subsample_size": int(m),
@@ -397,10 +408,18 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
                          seed=task_seed(seed, "sobol"), n_resamples=499 if quick else 999)
 
     warm_fn = getattr(model, "warm_started", None)
-    refits = _model_uncertainty(make, surrogate_name, seed, quick, X, y, space, encoding,
-                                n_refits=n_refits, n_base=max(64, n_base // 2),
-                                warm=warm_fn() if callable(warm_fn) else None,
-                                level=_INTERVAL_LEVEL, executor=executor)
+    # The permutation folds and the half-sample refits are independent: one task grid
+    # (the folds, fitted afresh and so the dearer tasks, first), so a worker never
+    # waits at a barrier between them.  Each task and its seed are as before.
+    perm_tasks = _permutation_tasks(make, surrogate_name, seed, quick, X, y, blocks,
+                                    n_folds, n_repeats)
+    refit_tasks = _refit_tasks(make, surrogate_name, seed, quick, X, y, space, encoding,
+                               n_refits=n_refits, n_base=max(64, n_base // 2),
+                               warm=warm_fn() if callable(warm_fn) else None)
+    done = (executor or Executor()).map(
+        _relevance_task, [("permutation", *t) for t in perm_tasks]
+        + [("refit", *t) for t in refit_tasks], label="relevance")
+    refits = _refit_summary(done[len(perm_tasks):], len(y), len(space), n_refits)
     enough = refits["refits_used"] >= _MIN_REFITS
     mc_total, mc_first = sob["total_interval"], sob["first_interval"]
     if enough:
@@ -409,8 +428,7 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
         sob["first_interval"] = _percentile_interval(refits["first"], sob["first_order"],
                                                      mc_first, _INTERVAL_LEVEL)
 
-    perm, perm_lo, perm_hi = _permutation_importance(
-        make, surrogate_name, seed, quick, X, y, blocks, n_folds, n_repeats, executor)
+    perm, perm_lo, perm_hi = _permutation_summary(done[:len(perm_tasks)], y)
     scales = _length_scales(model, blocks)
     rel_scales = _relative(scales, space, encoding, blocks)
     best = _best_row(trials)
@@ -478,22 +496,33 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
     }
 
 
-def _permutation_importance(make, name, seed, quick, X, y, blocks, n_folds, n_repeats,
-                            executor):
+def _permutation_tasks(make, name, seed, quick, X, y, blocks, n_folds,
+                       n_repeats) -> list[tuple]:
+    """The :func:`_permutation_fold` tasks of :func:`_permutation_importance`."""
     from sklearn.model_selection import KFold
 
     n_folds = max(2, min(n_folds, len(y) // 2))
     folds = list(KFold(n_folds, shuffle=True,
                        random_state=task_seed(seed, "relevance-folds") % (2**31)).split(X))
-    tasks = [(make, name, task_seed(seed, "relevance", "fold", k), quick, X, y, tr, te,
-              blocks, n_repeats) for k, (tr, te) in enumerate(folds)]
-    ex = executor or Executor()
-    per_fold = np.array(ex.map(_permutation_fold, tasks, label="relevance"))
-    per_fold = per_fold / max(float(np.var(y)), 1e-300)
+    return [(make, name, task_seed(seed, "relevance", "fold", k), quick, X, y, tr, te,
+             blocks, n_repeats) for k, (tr, te) in enumerate(folds)]
+
+
+def _permutation_summary(per_fold, y):
+    """Mean and 95% t-interval over folds of the per-fold importances, as shares of the
+    objective's variance."""
+    per_fold = np.array(per_fold) / max(float(np.var(y)), 1e-300)
+    n_folds = len(per_fold)
     mean = per_fold.mean(axis=0)
     half = (stats.t.ppf(0.5 + _INTERVAL_LEVEL / 2, n_folds - 1)
             * per_fold.std(axis=0, ddof=1) / math.sqrt(n_folds))
     return mean, mean - half, mean + half
+
+
+def _relevance_task(kind: str, *args):
+    """One task of :func:`parameter_relevance`'s single task grid: a permutation fold
+    or a half-sample refit (top-level, so worker processes can run it)."""
+    return _permutation_fold(*args) if kind == "permutation" else _safe_refit(*args)
 
 
 def _evidence(sob, perm, perm_lo, perm_hi, scales, i, freeze, flat, enough=True) -> str:

@@ -48,6 +48,19 @@ BUILTIN: dict[str, tuple[str, str]] = {
 }
 
 
+#: The built-ins' ``input_encoding`` where it is not "onehot" (the classes' attribute,
+#: kept here too so that choosing each model's encoding imports no model module: the
+#: networks' modules import torch, seconds of a run's main process, which never fits a
+#: network when the cross-validation runs in worker processes).
+#: ``tests/test_surrogate_contract.py`` checks it against the classes.
+_BUILTIN_ENCODING = {"forest": "ordinal"}
+
+
+def _builtin_encoding(name: str) -> str | None:
+    """Input encoding of built-in model ``name`` without importing it; None for any
+    other name (a user model: ask the model itself)."""
+    return _BUILTIN_ENCODING.get(name, "onehot") if name in BUILTIN else None
+
 def _module_available(spec: str) -> bool:
     module = spec.split(":")[0]
     try:
