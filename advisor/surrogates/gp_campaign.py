@@ -40,6 +40,37 @@ Lindgren & Rue 2019, from memory) fixed that only at rates that cost every sampl
 fermentation leave-one-campaign-out 0.24-0.37 nats (there ``sigma_f^2`` is 40-57 with
 long length scales); not adopted (README, "Does every model know more than nothing?").
 
+Large logs (``n > max_exact``, the ``gp``'s ``MAX_EXACT``: 1500 rows, quick 800).  One
+evaluation of the objective above costs an ``n x n`` Cholesky, its inverse and a few
+``n x n`` products, and with ``2d + 3`` hyperparameters L-BFGS-B needs on the order of a
+hundred of them: on a 20-parameter, 5-campaign log one evaluation took 8.4 CPU s at
+n = 4000, a quick fit 34 CPU s at n = 1000 and 308 CPU s at n = 2000, so a quick
+assessment of 5,000 trials did not finish (our measurements, 2026-12-03, one BLAS thread
+on a loaded 2-core machine).  Beyond the limit the hyperparameters are therefore fitted
+on a random subset of ``subset_size`` rows (the ``gp``'s ``SUBSET_SIZE``: 1000, quick
+600), stratified by campaign -- each campaign in proportion to its rows, largest-
+remainder rounding, at least one row each while the size allows -- so that the offsets
+and slopes stay identified; then, at those hyperparameters, the posterior is conditioned
+exactly on all rows (one Cholesky of the ``n x n`` training covariance, built in blocks of
+rows so that only the matrix and its factor are held, about ``16 n^2`` bytes; 0.65 GB of
+peak RSS at n = 4000 before the blocking, 0.55 GB after).  Up to ``max_condition`` =
+6000 rows (``MAX_CONDITION``); beyond it the posterior is conditioned on a campaign-
+stratified random subset of that many rows (subset of data; our choice, keeping the
+memory at about 0.6 GB).  ``info_["approximation"]`` says which ran, with ``m`` and
+``n_conditioned``.  Unlike the ``gp`` there is no sparse (FITC) predictor: the indicator
+kernel and the slopes would need their own inducing variables; the exact posterior on all
+rows is cheap enough at these sizes.  Cost at n = 4000, d = 20, quick: fit 18 CPU s (the
+subset fit about 13, the build and Cholesky about 5), prediction at 1000 points 1.3 CPU s.
+Accuracy against the exact fit (``tests/test_campaign_gp_size.py``, Branin with
+campaign offsets and slopes, 10 seeds): held-out NLL 0.008 nats per point worse on average
+(largest 0.032) with 200 of 600 rows, 0.005 (largest 0.020) with 300 of 1000; the
+predicted means rank the held-out points the same (Spearman >= 0.9999).  The subset can
+mislead the optimizer like any small log: on the 20-parameter log above one 600-row
+subset (seed 0) ended at a noise sd of 0.0015 in standardized units, the fixed start
+stopped by the quick budget of 100 iterations (held-out NLL 0.93); with seed 1 the noise
+sd came out 0.17 in y's units (generating 0.1; held-out NLL -0.23); the exact fit on 4000
+rows was not affordable to compare.
+
 References
 ----------
 [RW2006] Rasmussen, C. E. & Williams, C. K. I. (2006). Gaussian Processes for Machine
