@@ -404,12 +404,13 @@ class CampaignGP(EstimatorMixin):
         if not large:
             approx = "exact"
         elif n_cond == n:
+            # no n in the text: the report lists the distinct texts over the folds
             approx = (f"hyperparameters on a campaign-stratified random subset of {m} "
-                      f"rows; exact posterior on all {n} rows")
+                      "rows; exact posterior on all rows")
         else:
             approx = (f"hyperparameters on a campaign-stratified random subset of {m} "
                       f"rows; posterior on a campaign-stratified random subset of "
-                      f"{n_cond} of {n} rows")
+                      f"{n_cond} rows")
         self.info_ = {"approximation": approx, "n_train": n, "max_exact": max_exact,
                       "n_campaigns": int(n_campaigns),
                       "between_campaign_sd": self.between_campaign_sd_,
