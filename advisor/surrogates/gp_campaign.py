@@ -102,6 +102,14 @@ __all__ = ["CampaignGP", "MAX_CONDITION"]
 #: conditioned exactly on up to this many rows (one ``n x n`` Cholesky at the fitted
 #: hyperparameters); beyond it, on a campaign-stratified subset of this many rows.
 MAX_CONDITION = 6000
+#: The quick budget of L-BFGS-B: at most 100 iterations, and stop once an iteration
+#: improves the objective by less than 1e-6 of its size (scipy's ``ftol``, default
+#: 2.2e-9): on the 500-trial moulding log (375 training rows, 6 parameters, 4 lots) a
+#: quick fit took 2.7 instead of 4.5 CPU s (139 instead of 240 objective evaluations
+#: over its two starts), the best objective 0.014 nats higher and the held-out NLL per
+#: point -3.0010 against -3.0002 (our measurement, 2026-12-03).  The campaign GP's fits
+#: were 39% of that log's quick assessment's CPU.
+_QUICK_OPTIONS = {"maxiter": 100, "ftol": 1e-6}
 _BLOCK = 1024  # rows of the training covariance built at a time beyond the exact limit
 
 
@@ -398,7 +406,8 @@ class CampaignGP(EstimatorMixin):
             res = optimize.minimize(_nlml, x0, jac=True,
                                     args=(Xh, yh, S, self.jitter, slopes, self.hyperprior),
                                     method="L-BFGS-B", bounds=bounds,
-                                    options={"maxiter": 100 if self.quick else 200})
+                                    options=_QUICK_OPTIONS if self.quick
+                                    else {"maxiter": 200})
             if best is None or res.fun < best.fun:
                 best = res
         p = np.exp(best.x)
