@@ -317,6 +317,20 @@ def baseline_statement(vb: dict | None, trials: int | None) -> str | None:
     return text
 
 
+def beats_random_search(vb: dict | None) -> bool | None:
+    """Did the recommended setting beat random search on the simulated runs, in either
+    unit (:func:`advisor.backtest.baseline_test`)?  None when that test did not run."""
+    if not vb or "random search" not in (vb.get("beats") or {}):
+        return None
+    return bool(any(vb["beats"]["random search"].values()))
+
+
+#: The caveat the headline carries when the backtest does not show the recommended
+#: setting beating random search (terminal and PDF; ``beats_random_search`` False).
+RANDOM_CAVEAT = ("on the backtest's stand-ins this setting does not beat random search, "
+                 "so the logs do not show that model-based search pays here")
+
+
 def _setting_dict(backtest_out, label):
     for st in backtest_out.get("settings") or []:
         if st.get("label") == label:
@@ -480,6 +494,8 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
             k: (list(v) if isinstance(v, tuple) else v)
             for k, v in PERFECT_STANDINS.items()}}}
     return {"surrogate": leader, "acquisition": acq, "acquisition_source": source,
+            "beats_random_search": beats_random_search(
+                decision.get("versus_baselines") if source == "backtest" else None),
             "acquisition_evidence": None if acq_strength is None else acq_strength[0],
             "acquisition_test": test_out, "acquisition_statement": statement,
             "acquisition_margins": None if not (choice and choice.get("acquisition")) else {

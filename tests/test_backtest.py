@@ -762,3 +762,27 @@ def test_the_decision_carries_the_baseline_test_of_its_chosen_setting_into_the_r
         "baseline_statement": text}}})
     out = " ".join(decision_texts(view))
     assert "Against random and grid search." in out and "not shown to pay within 30" in out
+
+
+def test_the_headline_carries_the_caveat_when_random_search_is_not_beaten():
+    # The one-sentence recommendation (PDF) must not read as if model-based search were
+    # shown to pay when the baseline test says it is not; and it stays silent when the
+    # test did not run or the setting beats random search in some unit.
+    from types import SimpleNamespace
+
+    from advisor import decision
+    from advisor.report.sections.recommendation import headline
+
+    lost = {"beats": {"random search": {"auc": False, "final": False},
+                      "grid search": {"auc": True, "final": True}}}
+    won = {"beats": {"random search": {"auc": False, "final": True}}}
+    assert decision.beats_random_search(lost) is False
+    assert decision.beats_random_search(won) is True
+    assert decision.beats_random_search(None) is None
+    rec = {"surrogate": "gp", "acquisition": {"name": "ei", "params": {"xi": 0.01}},
+           "acquisition_source": "backtest", "acquisition_test": {"level": 0.05},
+           "variance_scale": 1.0}
+    for flag, shown in ((False, True), (True, False), (None, False)):
+        text = headline(SimpleNamespace(d={"recommendation": dict(
+            rec, beats_random_search=flag)}))
+        assert ("does not beat random search" in text) is shown

@@ -83,6 +83,9 @@ def print_assessment(a, payload: dict, written, console: Console | None = None) 
         src = f"the default, kept: nothing beats it at level {test.get('level')}"
     con.print(f"[bold]Recommendation:[/] {rec['surrogate']}{scale_txt}, acquisition "
               f"{acq_txt} ({src}); confidence [bold]{rec['confidence']}[/].")
+    if rec.get("beats_random_search") is False:
+        from ..decision import RANDOM_CAVEAT
+        con.print(f"[bold]Caveat:[/] {RANDOM_CAVEAT} (see baselines below).")
     pair = rec.get("pair")
     if pair:
         con.print(f"[bold]The pair:[/] {pair['calibration']} for calibrated predictions, "

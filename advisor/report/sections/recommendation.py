@@ -63,8 +63,14 @@ def headline(v: _View) -> str:
     else:
         scaling = "use its predictive variances as they are (no scaling needed)"
     src_text = _acq_source_text(rec)
+    caveat = ""
+    if rec.get("beats_random_search") is False:
+        from ...decision import RANDOM_CAVEAT
+        caveat = (f" <b>Caveat:</b> {_e(RANDOM_CAVEAT)} (see <i>Against random and grid "
+                  "search</i> below).")
     return (f"Use the <b>{_e(sur)}</b> surrogate with "
-            f"<b>{_e(_acq_text(rec.get('acquisition')))}</b> ({src_text}), and {scaling}.")
+            f"<b>{_e(_acq_text(rec.get('acquisition')))}</b> ({src_text}), and {scaling}."
+            + caveat)
 
 
 def _acq_source_text(rec: dict) -> str:
