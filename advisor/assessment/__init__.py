@@ -42,7 +42,7 @@ from ._folds import (_all_folds, _cross_validate, _encoding_of, _fit_predict_tas
                      _isolated_folds, _merge_info, _nanmean, _other_schemes,
                      _ranking_blocks, _score_pooled)
 from ._result import Assessment, _package_versions
-from ._stages import (_CANDIDATE_RULE, _COST_SCOPE_QUICK, _as_trials, _backtest_candidates,
+from ._stages import (_CANDIDATE_RULE, _COST_SCOPE, _as_trials, _backtest_candidates,
                       _cost_names, _feasibility,
                       _plan, _quick_model, _replicate_noise, _run_backtest, _settings)
 
@@ -232,7 +232,7 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         planned = sorted(_cost_names([n for n in names if n not in failures], ranking,
                                      rec, quick), key=fit_cost, reverse=True)
         planning_out, proposals = _plan(trials, rec, names=planned,
-                                        cost_scope=_COST_SCOPE_QUICK if quick else None,
+                                        cost_scope=_COST_SCOPE,
                                         seed=seed, quick=quick, budget=budget,
                                         propose=propose, max_fit_seconds=max_fit_seconds,
                                         executor=executor, freeze=freeze,
