@@ -302,8 +302,10 @@ def baseline_statement(vb: dict | None, trials: int | None) -> str | None:
             f"final regret {fin['ratio_of_means']:.2f}x {short}'s; ")
         ps = ", ".join(f"{m} {r['p_holm']:.2g}" for m, r in
                        (("AUC", auc), ("final", fin)) if r is not None)
+        # "not shown to beat": a p above the level is absence of evidence, not
+        # evidence of a tie (p-values near 0.05 move with any change to the runs).
         verdict = f"beats {name} in {' and '.join(won)}" if won else \
-            f"does not beat {name}"
+            f"is not shown to beat {name}"
         if not won:
             lost.append(name)
         parts.append(f"{verdict} ({ratio}adjusted p: {ps})")
@@ -327,7 +329,8 @@ def beats_random_search(vb: dict | None) -> bool | None:
 
 #: The caveat the headline carries when the backtest does not show the recommended
 #: setting beating random search (terminal and PDF; ``beats_random_search`` False).
-RANDOM_CAVEAT = ("on the backtest's stand-ins this setting does not beat random search, "
+RANDOM_CAVEAT = ("on the backtest's stand-ins this setting is not shown to beat random search "
+                 f"(one-sided paired tests at level {ALPHA}), "
                  "so the logs do not show that model-based search pays here")
 
 

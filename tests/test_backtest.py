@@ -725,7 +725,7 @@ def test_baseline_test_finds_a_setting_that_truly_beats_random_search_and_says_s
     fin = next(r for r in won["comparisons"] if r["metric"] == "final")
     assert fin["ratio_of_means"] < 0.5
     text = decision.baseline_statement(dict(lost, setting="EI xi=0.01"), 12)
-    assert "does not beat random search" in text and "not shown to pay within 12 trials" in text
+    assert "is not shown to beat random search" in text and "not shown to pay within 12 trials" in text
     assert "not shown to pay" not in decision.baseline_statement(dict(won, setting="x"), 12)
 
 
@@ -785,4 +785,4 @@ def test_the_headline_carries_the_caveat_when_random_search_is_not_beaten():
     for flag, shown in ((False, True), (True, False), (None, False)):
         text = headline(SimpleNamespace(d={"recommendation": dict(
             rec, beats_random_search=flag)}))
-        assert ("does not beat random search" in text) is shown
+        assert ("is not shown to beat random search" in text) is shown
