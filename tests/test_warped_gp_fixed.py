@@ -163,3 +163,24 @@ def test_warm_start_ends_no_worse_with_fewer_starts(kind):
     # on more data the transform is chosen afresh (documented in warm_started)
     grown = full.warm_started().fit(X, y)
     assert _warp_tuple(grown.warp_) == _warp_tuple(OutputWarp.choose(y))
+
+
+def test_warm_start_carries_the_hyperparameters_over_in_standardized_units():
+    # A fit under the log, a warm refit on data only Yeo-Johnson can take: the start
+    # is the old optimum relative to the spread of T(y) (MaternGP standardizes T(y) by
+    # its ddof-0 sd), the length scales (input units) as they were.
+    X, y, _ = _log("log")
+    full = WarpedGP(seed=0, quick=True).fit(X[:30], y[:30])
+    y_new = y.copy()
+    y_new[40] = -1.0
+    warm = clone(full.warm_started())      # a proper estimator: clone keeps the start
+    warm.fit(X, y_new)
+    assert (full.warp_.kind, warm.warp_.kind) == ("log", "yeo-johnson")
+    start = warm.gp_.get_params()          # the values the optimizer started from
+    var_new = _transform(warm.warp_, y_new).var()
+    var_old = np.log(y[:30]).var()
+    for name, fitted in (("signal_variance", full.gp_.signal_variance_),
+                         ("noise_variance", full.gp_.noise_std_ ** 2)):
+        assert start[name] / var_new == pytest.approx(fitted / var_old, rel=1e-10)
+    np.testing.assert_allclose(start["length_scale"], full.gp_.length_scales_, rtol=1e-12)
+    assert warm.info_["starts"] == 1
