@@ -534,15 +534,27 @@ def test_cheap_updates_reoptimize_on_schedule(trials):
     from advisor.surrogates.neural_process import NeuralProcess
     assert NeuralProcess.reoptimize_on_doubling is False
 
-    # a model offering warm_started() (both GPs) is re-optimized from the last full
-    # fit's hyperparameters: the same schedule as the first case, the run's first fit
-    # with its own starts, the later scheduled ones warm (one start, no restarts)
+    # a model offering warm_started() (the networks) is re-optimized from its last full
+    # fit: the same schedule as the first case, the run's first fit with its own
+    # starts, the later scheduled ones warm
     calls.update(full=0, fixed=0, warm=0)
     Counting.reoptimize_on_doubling = True
     Counting.warm_started = lambda self: Counting(self.inner.warm_started(), "warm")
     replay_pool(make, "gp", AcquisitionSetting("ei", {"xi": 0.01}), trials.space, frame,
                 pool["y"], [0, 1], n_picks=10, refit_every=1, reoptimize_every=5, rng=0)
     assert calls == {"full": 1, "warm": 2, "fixed": 7}
+
+    # ... unless its class says warm_reoptimize = False (the three GPs): then every
+    # scheduled re-optimization is a full fit with the model's own starts
+    calls.update(full=0, fixed=0, warm=0)
+    Counting.warm_reoptimize = False
+    replay_pool(make, "gp", AcquisitionSetting("ei", {"xi": 0.01}), trials.space, frame,
+                pool["y"], [0, 1], n_picks=10, refit_every=1, reoptimize_every=5, rng=0)
+    assert calls == {"full": 3, "warm": 0, "fixed": 7}
+    from advisor.surrogates.gp import MaternGP
+    from advisor.surrogates.gp_campaign import CampaignGP
+    from advisor.surrogates.warping import WarpedGP
+    assert not any(c.warm_reoptimize for c in (MaternGP, CampaignGP, WarpedGP))
 
 
 def test_replay_paired_test_cannot_decide_with_four_campaigns():

@@ -121,14 +121,15 @@ def test_warm_start_keeps_the_previous_held_out_rows_out():
 
 def test_backtest_takes_the_warm_path_for_the_ensemble_and_says_so():
     # The backtest reads the path from the model's protocol members, not its name:
-    # the networks and the GP offer warm_started(), the forest nothing.
+    # the networks and the GP offer warm_started(), the forest nothing; the GP's class
+    # keeps it out of the backtest's scheduled re-fits (warm_reoptimize = False).
     plan = plan_for(True)
     paths = {n: update_paths(make_surrogate(n, seed=0, quick=True), plan)
              for n in ("ensemble", "dngo", "bnn", "gp", "forest")}
     for n in ("ensemble", "dngo", "bnn"):
         assert paths[n]["scheduled_refit"] == "warm_started"
         assert paths[n]["between_refits"] == "kept"
-    assert paths["gp"] == {"first_fit": "full", "scheduled_refit": "warm_started",
+    assert paths["gp"] == {"first_fit": "full", "scheduled_refit": "full",
                            "between_refits": "fixed_hyperparameters",
                            "reoptimize_on_doubling": True}
     assert paths["forest"]["scheduled_refit"] == "full"

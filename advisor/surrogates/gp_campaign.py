@@ -262,6 +262,11 @@ class CampaignGP(EstimatorMixin):
 
     uses_groups = True
 
+    #: The backtest's scheduled re-optimizations are full fits, not warm starts from
+    #: the last fit (``advisor.backtest._pool._warm_in_backtest``: a one-start warm
+    #: re-fit stays in the basin of a fit on a handful of trials).
+    warm_reoptimize = False
+
     def __init__(self, seed=0, quick=False, *, restarts=None, jitter=1e-8,
                  random_slopes=True, hyperprior=False, length_scale=None,
                  signal_variance=None, noise_variance=None, campaign_variance=None,

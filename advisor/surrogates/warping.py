@@ -62,6 +62,11 @@ class WarpedGP(EstimatorMixin):
     info_ : dict with the transform used.
     """
 
+    #: The backtest's scheduled re-optimizations are full fits, not warm starts from
+    #: the last fit (``advisor.backtest._pool._warm_in_backtest``: a one-start warm
+    #: re-fit stays in the basin of a fit on a handful of trials).
+    warm_reoptimize = False
+
     def __init__(self, seed=0, quick=False, *, warp="auto", transform=None, gp=None,
                  gp_start_sd=None):
         self.seed = seed

@@ -102,6 +102,11 @@ class MaternGP(ScaledSurrogate):
 
     input_encoding = "onehot"
 
+    #: The backtest's scheduled re-optimizations are full fits, not warm starts from
+    #: the last fit (``advisor.backtest._pool._warm_in_backtest``: a one-start warm
+    #: re-fit stays in the basin of a fit on a handful of trials).
+    warm_reoptimize = False
+
     def __init__(self, seed=0, quick=False, *, restarts=None, max_exact=None,
                  subset_size=None, optimize=True, length_scale=None, signal_variance=None,
                  noise_variance=None, normalize=True, noise_variance_bounds=None,
