@@ -349,9 +349,11 @@ def _setting_dict(backtest_out, label):
 #: campaigns), how often the backtest picked a true winner (counting the logs where its
 #: paired test ran: 20 of 20, Levy-3 and Branin log seeds 0-9, measured 2026-12-03 at
 #: commit f87afd1: simulated runs as long as the next campaign, here 20 trials, and
-#: the campaign GP updated at every step), and the one-sided 95% upper bound of that
-#: rate (exact binomial, Clopper & Pearson 1934).  The earlier record, 0 of 30 (bound
-#: 0.095) with 12-trial runs, is kept as variant ``benchmark_trials12``.  Kept beside
+#: the campaign GP updated at every step; re-measured at stop 28, commit 19a3978, with
+#: the GPs' scheduled re-fits full instead of warm-started: 0 of 20 again, the f87afd1
+#: rows kept as variant ``benchmark_warm_s27``), and the one-sided 95% upper bound of
+#: that rate (exact binomial, Clopper & Pearson 1934).  The earlier record, 0 of 30
+#: (bound 0.095) with 12-trial runs, is kept as variant ``benchmark_trials12``.  Kept beside
 #: the statement so the printed sentence carries its own measured outcome;
 #: ``tests/test_decision.py`` checks it against the results file.
 REAL_DETECTION = {"picked": 0, "logs": 20, "upper_95": 0.139,
