@@ -54,6 +54,9 @@ References
 .. [GRWG2005] Gneiting, T., Raftery, A. E., Westveld, A. H. & Goldman, T. (2005).
    Calibrated probabilistic forecasting using ensemble model output statistics and
    minimum CRPS estimation. Monthly Weather Review 133, 1098-1118 (Eq. 5).
+.. [LKOB2019] Letham, B., Karrer, B., Ottoni, G. & Bakshy, E. (2019). Constrained
+   Bayesian optimization with noisy experiments. Bayesian Analysis 14(2), 495-519
+   (eq. 7, noisy expected improvement).
 .. [RW2006] Rasmussen, C. E. & Williams, C. K. I. (2006). Gaussian Processes for
    Machine Learning. MIT Press (Sec. 5.1, automatic relevance determination).
 """

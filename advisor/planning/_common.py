@@ -84,15 +84,45 @@ def _best_row(trials) -> pd.Series:
     return trials.used.iloc[int(np.argmin(trials.y))]
 
 
-def _fit(make, name, seed, quick, X, y):
-    return make(name, seed=seed, quick=quick).fit(X, y)
+def _uses_groups(model) -> bool:
+    """Whether ``model`` takes campaign labels (the optional ``uses_groups`` member of
+    the surrogate protocol, :mod:`advisor.surrogates.base`)."""
+    return bool(getattr(model, "uses_groups", False))
+
+
+def _fit_model(model, X, y, groups=None):
+    """``model.fit(X, y, groups=groups)`` for a model with ``uses_groups``, otherwise
+    exactly ``model.fit(X, y)`` (a model without campaign labels is called as before).
+
+    Why the labels: cross-validation tells such a model each row's campaign
+    (:func:`advisor.assessment._folds._fit_predict_task`); fitted without them, a
+    campaign GP pools every campaign as one, the offsets between campaigns become
+    noise, and the planning would read a different model from the one that was
+    ranked."""
+    if groups is not None and _uses_groups(model):
+        return model.fit(X, y, groups=groups)
+    return model.fit(X, y)
+
+
+def _predict_model(model, X, groups=None):
+    """``model.predict(X, groups=groups)`` for a model with ``uses_groups`` given labels
+    (held-out logged rows of known campaigns), otherwise exactly ``model.predict(X)``
+    (settings of no logged campaign: for the campaign GP the prediction of a new
+    campaign, mean without offset, sd with the unknown offset's variance)."""
+    if groups is not None and _uses_groups(model):
+        return model.predict(X, groups=groups)
+    return model.predict(X)
+
+
+def _fit(make, name, seed, quick, X, y, groups=None):
+    """A fresh surrogate fitted on ``X``, ``y`` (with ``groups`` when it uses them)."""
+    return _fit_model(make(name, seed=seed, quick=quick), X, y, groups)
 
 
 def _fit_all(make, name, seed, quick, trials):
-    """A surrogate fitted on every successful trial, and the encoding it asked for."""
+    """A surrogate fitted on every successful trial (told each trial's campaign when it
+    has ``uses_groups``), and the encoding it asked for."""
     model = make(name, seed=seed, quick=quick)
     encoding = _encoding(model)
-    model.fit(trials.space.encode(trials.used, encoding), trials.y)
+    _fit_model(model, trials.space.encode(trials.used, encoding), trials.y, trials.groups)
     return model, encoding
-
-

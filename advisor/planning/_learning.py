@@ -16,17 +16,22 @@ from ..execution import Executor, task_seed
 from ..scoring import gaussian_crps, gaussian_nll
 from ..surrogates import make_surrogate
 
-from ._common import _check_trials, _encoding, _fit, _fnum
+from ._common import _check_trials, _encoding, _fit, _fnum, _predict_model, _uses_groups
 
 
 _MIN_TRAIN = 4
 
 
-def _learning_task(make, name, seed, quick, X, y, train, test):
-    """Fit on ``train`` rows, score Gaussian CRPS ([GRWG2005] Eq. 5) and NLL on ``test``."""
+def _learning_task(make, name, seed, quick, X, y, train, test, groups=None):
+    """Fit on ``train`` rows, score Gaussian CRPS ([GRWG2005] Eq. 5) and NLL on ``test``.
+
+    ``groups`` (every row's campaign, or None): a model with ``uses_groups`` is fitted
+    with the training rows' campaigns and predicts the test rows with their own, as
+    cross-validation does."""
     try:
-        model = _fit(make, name, seed, quick, X[train], y[train])
-        mean, std = model.predict(X[test])
+        g_train, g_test = (None, None) if groups is None else (groups[train], groups[test])
+        model = _fit(make, name, seed, quick, X[train], y[train], g_train)
+        mean, std = _predict_model(model, X[test], g_test)
         crps = float(np.mean(gaussian_crps(y[test], mean, std)))
         nll = float(np.mean(gaussian_nll(y[test], mean, std)))
     except Exception:  # a failed fit is recorded as missing, never fatal (our choice)
@@ -46,7 +51,10 @@ def learning_curve(trials, surrogate_name: str, *, seed: int, quick: bool = Fals
     curve within a repeat is not blurred by different draws) and scored on the same
     test part: mean Gaussian CRPS ([GRWG2005] Eq. 5, units of the objective) and NLL.
     Our choices: random (not campaign-aware) splits, nested subsets, at least 4
-    training trials.
+    training trials.  A model with ``uses_groups`` (the campaign GP) is told each
+    trial's campaign, in training and in the test part; with random splits a test
+    trial's campaign nearly always has training trials, so the curve measures how
+    well more trials of the logged campaigns are predicted, not a new campaign.
 
     Reading rule (our choice): over the last two segments (third-last to last size),
     the per-repeat decrease of CRPS is paired across repeats; the curve is *still
@@ -72,15 +80,17 @@ def learning_curve(trials, surrogate_name: str, *, seed: int, quick: bool = Fals
                          f"learning curve needs at least {_MIN_TRAIN}", fix="add trials")
     sizes = sorted({max(_MIN_TRAIN, min(n_train_all, int(round(f * n_train_all))))
                     for f in fractions})
-    encoding = _encoding(make(surrogate_name, seed=0, quick=quick))
+    probe = make(surrogate_name, seed=0, quick=quick)
+    encoding = _encoding(probe)
     X, y = trials.features(encoding), trials.y
+    groups = trials.groups if _uses_groups(probe) else None
     tasks = []
     for r in range(repeats):
         perm = np.random.default_rng(task_seed(seed, "learning", "split", r)).permutation(n)
         test, train = perm[:n_test], perm[n_test:]
         for m in sizes:
             tasks.append((make, surrogate_name, task_seed(seed, "learning", "fit", r, m),
-                          quick, X, y, train[:m], test))
+                          quick, X, y, train[:m], test, groups))
     out = np.array((executor or Executor()).map(_learning_task, tasks, label="learning curve"),
                    dtype=float).reshape(repeats, len(sizes), 2)
     crps, nll = out[..., 0], out[..., 1]

@@ -18,7 +18,9 @@ from ..execution import Executor, task_seed
 from ..space import ParameterSpace
 from ..surrogates import make_surrogate
 
-from ._common import PERMUTATION_FREEZE, RELEVANCE_CAUTION, TOTAL_EFFECT_FREEZE, _INTERVAL_LEVEL, _best_row, _check_trials, _feature_blocks, _fit, _fit_all, _fnum, _plain
+from ._common import (PERMUTATION_FREEZE, RELEVANCE_CAUTION, TOTAL_EFFECT_FREEZE,
+                      _INTERVAL_LEVEL, _best_row, _check_trials, _feature_blocks, _fit,
+                      _fit_all, _fit_model, _fnum, _plain, _predict_model, _uses_groups)
 
 
 def _sobol_design(space: ParameterSpace, encoding: str):
@@ -182,22 +184,25 @@ def _sobol_point(predict_mean: Callable[[np.ndarray], np.ndarray], space: Parame
 
 
 def _half_sample_refit(make, name, seed, quick, X, y, space, encoding, n_base,
-                       warm=None):
+                       warm=None, groups=None):
     """One refit of the surrogate on a half-sample and the Sobol indices of its mean,
     each on its own fresh design (so the spread over refits carries the Monte-Carlo
     error as well as the model's).  ``warm``: an unfitted model whose optimizer starts
     from the full-data fit (``warm_started()``), used instead of ``make`` when given.
+    ``groups``: the rows' campaigns, for a model with ``uses_groups`` (the mean is then
+    read without a campaign: the population mean, as for the full fit).
     Returns ``(first_order, total)``, shapes (d,)."""
     if warm is None:
-        model = _fit(make, name, task_seed(seed, "fit"), quick, X, y)
+        model = _fit(make, name, task_seed(seed, "fit"), quick, X, y, groups)
     else:
-        model = clone(warm).set_params(seed=task_seed(seed, "fit")).fit(X, y)
+        model = _fit_model(clone(warm).set_params(seed=task_seed(seed, "fit")), X, y,
+                           groups)
     return _sobol_point(lambda Xe: model.predict(Xe)[0], space, encoding, n_base=n_base,
                         seed=task_seed(seed, "design"))
 
 
 def _model_uncertainty(make, name, seed, quick, X, y, space, encoding, *, n_refits,
-                       n_base, level, executor, warm=None):
+                       n_base, level, executor, warm=None, groups=None):
     """Sobol indices of the surrogate refitted on ``n_refits`` random half-samples.
 
     Which resampling, and why (measured, see ``benchmarks/relevance_refit_spread.py``):
@@ -226,20 +231,22 @@ def _model_uncertainty(make, name, seed, quick, X, y, space, encoding, *, n_refi
     "refits_used"}``; refits that fail or whose mean is flat are dropped.
     """
     tasks = _refit_tasks(make, name, seed, quick, X, y, space, encoding,
-                         n_refits=n_refits, n_base=n_base, warm=warm)
+                         n_refits=n_refits, n_base=n_base, warm=warm, groups=groups)
     results = (executor or Executor()).map(_safe_refit, tasks, label="relevance refits")
     return _refit_summary(results, len(y), len(space), n_refits)
 
 
 def _refit_tasks(make, name, seed, quick, X, y, space, encoding, *, n_refits, n_base,
-                 warm=None) -> list[tuple]:
-    """The :func:`_safe_refit` tasks of :func:`_model_uncertainty`."""
+                 warm=None, groups=None) -> list[tuple]:
+    """The :func:`_safe_refit` tasks of :func:`_model_uncertainty` (``groups``: every
+    row's campaign or None; each task gets its half-sample's)."""
     n = len(y)
     m = max(2, n // 2)
     rng = np.random.default_rng(task_seed(seed, "relevance", "half-samples"))
     subsets = [np.sort(rng.permutation(n)[:m]) for _ in range(n_refits)]
     return [(make, name, task_seed(seed, "relevance", "refit", b), quick, X[idx], y[idx],
-             space, encoding, n_base, warm) for b, idx in enumerate(subsets)]
+             space, encoding, n_base, warm, None if groups is None else groups[idx])
+            for b, idx in enumerate(subsets)]
 
 
 def _refit_summary(results, n: int, d: int, n_refits: int) -> dict:
@@ -276,18 +283,24 @@ def _percentile_interval(values, point, mc_interval, level):
 _MIN_REFITS = 10
 
 
-def _permutation_fold(make, name, seed, quick, X, y, train, test, blocks, n_repeats):
+def _permutation_fold(make, name, seed, quick, X, y, train, test, blocks, n_repeats,
+                      groups=None):
     """Held-out permutation importance of each parameter on one fold ([BRE2001] Sec. 10,
     on a held-out fold instead of out-of-bag rows; [FRD2019] Eq. 3.3 as a difference).
 
     Hand-written rather than ``sklearn.inspection.permutation_importance``: a one-hot
     categorical must be permuted as a whole block (scikit-learn permutes single columns)
     and the surrogate protocol returns ``(mean, std)``, not an estimator's ``predict``.
+    ``groups`` (every row's campaign, or None): a model with ``uses_groups`` is fitted
+    with the training rows' campaigns and predicts the held-out rows with their own
+    (the folds are random, so those campaigns have training rows and their offsets are
+    learned; a permuted row keeps its campaign, only its settings move).
     Returns the mean increase in held-out MSE per parameter (n_params,).
     """
-    model = _fit(make, name, task_seed(seed, "fit"), quick, X[train], y[train])
+    g_train, g_test = (None, None) if groups is None else (groups[train], groups[test])
+    model = _fit(make, name, task_seed(seed, "fit"), quick, X[train], y[train], g_train)
     Xt, yt = X[test], y[test]
-    base = float(np.mean((model.predict(Xt)[0] - yt) ** 2))
+    base = float(np.mean((_predict_model(model, Xt, g_test)[0] - yt) ** 2))
     rng = np.random.default_rng(task_seed(seed, "permute"))
     out = np.zeros(len(blocks))
     for i, cols in enumerate(blocks):
@@ -295,7 +308,8 @@ def _permutation_fold(make, name, seed, quick, X, y, train, test, blocks, n_repe
         for _ in range(n_repeats):
             Xp = Xt.copy()
             Xp[:, cols] = Xt[rng.permutation(len(test))][:, cols]
-            inc.append(float(np.mean((model.predict(Xp)[0] - yt) ** 2)) - base)
+            inc.append(float(np.mean((_predict_model(model, Xp, g_test)[0] - yt) ** 2))
+                       - base)
         out[i] = np.mean(inc)
     return out
 
@@ -345,11 +359,21 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
        design of ``n_base / 2`` rows, and the interval is the central 95% of the refits'
        values, widened to hold the point estimate and its Monte-Carlo (BCa bootstrap
        over design rows) interval, which is kept as ``total_interval_monte_carlo``.
+       A model with ``uses_groups`` (the campaign GP) is fitted, here and in every refit
+       and fold below, with each trial's campaign, as cross-validation fits it, and the
+       indices are those of its mean for a campaign not in the log (no labels: for the
+       campaign GP the population mean, the campaigns' offsets and slopes averaged
+       out).  Fitted without the campaigns it pools them, and the offsets between
+       them become noise and blur the mean (on the moulding sample log the total
+       indices then lay 0.025 from the data sheet's on average, 0.003 with them;
+       ``benchmarks/planning_groups.py``).
     2. Cross-check: permutation importance on held-out folds ([BRE2001], [FRD2019]):
        the increase in held-out mean squared error when one parameter's column(s) are
        permuted among the held-out rows (a one-hot block as a whole), as a share of
        the objective's variance; mean over ``n_folds`` shuffled folds with a 95%
-       Student-t interval across folds (our choice).
+       Student-t interval across folds (our choice).  A model with ``uses_groups``
+       predicts the held-out trials with their own campaigns (seen in training, the
+       folds being random).
     3. For a model with ``length_scales_`` (the GP), its fitted ARD length scale per
        parameter ([RW2006] Sec. 5.1; raw encoded units, the shortest of a one-hot
        block) and the same divided by the parameter's encoded range.
@@ -411,11 +435,15 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
     # The permutation folds and the half-sample refits are independent: one task grid
     # (the folds, fitted afresh and so the dearer tasks, first), so a worker never
     # waits at a barrier between them.  Each task and its seed are as before.
+    # Campaign labels only for a model that takes them; a model without is called as
+    # before, fit(X, y) and predict(X).
+    groups = trials.groups if _uses_groups(model) else None
     perm_tasks = _permutation_tasks(make, surrogate_name, seed, quick, X, y, blocks,
-                                    n_folds, n_repeats)
+                                    n_folds, n_repeats, groups)
     refit_tasks = _refit_tasks(make, surrogate_name, seed, quick, X, y, space, encoding,
                                n_refits=n_refits, n_base=max(64, n_base // 2),
-                               warm=warm_fn() if callable(warm_fn) else None)
+                               warm=warm_fn() if callable(warm_fn) else None,
+                               groups=groups)
     done = (executor or Executor()).map(
         _relevance_task, [("permutation", *t) for t in perm_tasks]
         + [("refit", *t) for t in refit_tasks], label="relevance")
@@ -497,7 +525,7 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
 
 
 def _permutation_tasks(make, name, seed, quick, X, y, blocks, n_folds,
-                       n_repeats) -> list[tuple]:
+                       n_repeats, groups=None) -> list[tuple]:
     """The :func:`_permutation_fold` tasks of :func:`_permutation_importance`."""
     from sklearn.model_selection import KFold
 
@@ -505,7 +533,7 @@ def _permutation_tasks(make, name, seed, quick, X, y, blocks, n_folds,
     folds = list(KFold(n_folds, shuffle=True,
                        random_state=task_seed(seed, "relevance-folds") % (2**31)).split(X))
     return [(make, name, task_seed(seed, "relevance", "fold", k), quick, X, y, tr, te,
-             blocks, n_repeats) for k, (tr, te) in enumerate(folds)]
+             blocks, n_repeats, groups) for k, (tr, te) in enumerate(folds)]
 
 
 def _permutation_summary(per_fold, y):

@@ -17,7 +17,10 @@ Optional members a model may offer, which the tool uses when present:
 * ``sample_y(X, n_samples, rng) -> (n_samples, len(X))``: *joint* draws of the latent
   function at ``X`` (for Thompson sampling); without it, draws are independent per point;
 * ``uses_groups = True`` with ``fit(X, y, groups=None)`` / ``predict(X, groups=None)``:
-  the model is told which campaign each row belongs to;
+  the model is told which campaign each row belongs to; with it, optionally,
+  ``difference_std(X, x_ref)``: the sd of the latent difference ``f(x) - f(x_ref)``
+  between settings of one new campaign, whose unknown level cancels from it (the
+  first batch's acquisition reads it, :mod:`advisor.planning`);
 * ``predict_dist(X)``: a predictive distribution beyond the Gaussian (e.g.
   :class:`advisor.distributions.WarpedNormal`) with ``nll(y)`` (Jacobian included),
   ``crps(y)``, ``cdf(y)``, ``ppf(u)``; when present, held-out NLL, CRPS and coverage are

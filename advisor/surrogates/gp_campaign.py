@@ -496,6 +496,50 @@ class CampaignGP(EstimatorMixin):
             mean, sd = (np.concatenate(v) for v in zip(*parts))
         return self.y_mean_ + self.y_scale_ * mean, self.y_scale_ * sd
 
+    def difference_std(self, X, x_ref):
+        """Posterior sd of the latent difference ``f(x) - f(x_ref)`` between settings of
+        one *new* campaign (observation noise excluded), ``y``'s units, shape (n,).
+
+        Optional protocol member.  Everything a new campaign's settings share cancels
+        from the difference: its unknown offset exactly, and most of the level that the
+        logged campaigns leave uncertain (the intercept's error, ``r^2 / A``
+        [RW2006, Eq. 2.42], and the part of the Matérn function's level that the data
+        cannot tell from the offsets).  With ``v = L^-1 k(X_train, x)``, ``r = 1 -
+        1^T K^-1 k(X_train, x)`` and ``d = x - x_ref`` (standardized), from the
+        posterior covariance of a new campaign's latent values::
+
+            var = 2 s_f^2 - 2 k(x, x_ref) + d^T diag(t^2) d - |v - v_ref|^2
+                  + (r - r_ref)^2 / A
+
+        (``s_c^2`` cancels; ``tests/test_planning_groups.py`` checks it against plain
+        Gaussian conditioning with a wide intercept prior).  The first batch of the
+        next campaign uses it, with ``x_ref`` the incumbent's setting, as the sd of the
+        acquisition (``advisor.planning._proposals``)."""
+        X = np.asarray(X, dtype=float)
+        Xs = (X - self.x_mean_) / self.x_scale_
+        xr = (np.asarray(x_ref, dtype=float).reshape(1, -1) - self.x_mean_) / self.x_scale_
+        ones = linalg.solve_triangular(self.L_, np.ones(len(self.alpha_)), lower=True,
+                                       check_finite=False)
+        v_ref = linalg.solve_triangular(
+            self.L_, matern52(self.X_train_, xr, self._ls, self._sf2), lower=True,
+            check_finite=False)
+        r_ref = 1.0 - float(ones @ v_ref[:, 0])
+        out = []
+        for i in range(0, len(Xs), _CHUNK):
+            Xc = Xs[i:i + _CHUNK]
+            # a new campaign shares no offset or slopes with the training rows: only
+            # the Matern part of the cross-covariance (as in _predict_s)
+            v = linalg.solve_triangular(
+                self.L_, matern52(self.X_train_, Xc, self._ls, self._sf2), lower=True,
+                check_finite=False)
+            r = 1.0 - ones @ v
+            d = Xc - xr
+            var = (2.0 * self._sf2 - 2.0 * matern52(Xc, xr, self._ls, self._sf2)[:, 0]
+                   + (d * d) @ self._t2 - ((v - v_ref) ** 2).sum(0)
+                   + (r - r_ref) ** 2 / self._A)
+            out.append(np.sqrt(np.maximum(var, 0.0)))
+        return (np.concatenate(out) if out else np.zeros(0)) * self.y_scale_
+
     def _predict_s(self, Xs, g):
         """Predictive mean and sd in standardized units."""
         Ks = (matern52(self.X_train_, Xs, self._ls, self._sf2)
