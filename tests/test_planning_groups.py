@@ -282,3 +282,44 @@ def test_proposals_leave_the_shared_level_out_of_the_acquisition(trials, grouped
     np.testing.assert_allclose(frame["predicted_mean"], m, rtol=1e-10)
     np.testing.assert_allclose(frame["predicted_high_90"] - frame["predicted_low_90"],
                                2 * z * s, rtol=1e-10)
+
+
+def test_the_joint_grid_gives_what_the_sections_give_apart():
+    # The assessment runs the relevance's full-data fit as one task of the learning
+    # curve's grid (advisor.planning._joint); the sections must not change by it: the
+    # same learning curve as learning_curve(), the same relevance as
+    # parameter_relevance() fitting the model itself (same seed; the full fit here under
+    # one BLAS thread, so equal to rounding).
+    from pathlib import Path
+
+    import advisor
+    from advisor import planning
+    from advisor.execution import Executor
+    from advisor.planning._joint import fit_and_curve
+
+    root = Path(__file__).resolve().parent.parent
+    trials = advisor.load_trials(root / "sample_logs" / "moulding_warpage.csv",
+                                 objective="warpage_mm", campaign="lot", order="run")
+    ex = Executor(jobs=1)
+    fitted, curve = fit_and_curve(trials, "campaign_gp", seed=3, quick=True, executor=ex)
+    apart = planning.learning_curve(trials, "campaign_gp", seed=3, quick=True, executor=ex)
+    assert curve == apart
+    kw = dict(seed=3, quick=True, executor=ex, n_base=64, n_folds=2, n_repeats=2, n_refits=4)
+    joint = planning.parameter_relevance(trials, "campaign_gp", fitted=fitted, **kw)
+    own = planning.parameter_relevance(trials, "campaign_gp", **kw)
+    for a, b in zip(joint["parameters"], own["parameters"]):
+        assert a["name"] == b["name"]
+        np.testing.assert_allclose(a["total"], b["total"], rtol=1e-6, atol=1e-9)
+        np.testing.assert_allclose(a["total_interval"], b["total_interval"], rtol=1e-6,
+                                   atol=1e-9)
+    # and the relevance reads the model it is given (a fit on the first 60 trials reads
+    # the parameters differently), so the joint grid's fit is the one used
+    from advisor.planning._common import _fit_model
+    model, encoding = fitted
+    part = type(model)(**model.get_params())
+    rows = slice(0, 60)
+    _fit_model(part, trials.space.encode(trials.used.iloc[rows], encoding),
+               trials.y[rows], trials.groups[rows])
+    other = planning.parameter_relevance(trials, "campaign_gp", fitted=(part, encoding), **kw)
+    assert any(abs(a["total"] - b["total"]) > 1e-3
+               for a, b in zip(other["parameters"], own["parameters"]))

@@ -164,10 +164,25 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
             out[key] = None
             out["errors"][key] = f"{type(exc).__name__}: {exc}".splitlines()[0][:300]
 
+    # the relevance's full fit runs as one task of the learning curve's grid (workers
+    # busy instead of idle while it fits: advisor.planning._joint)
+    from ..planning._joint import fit_and_curve
+
+    joint = {}
+
+    def joint_part(key):
+        if not joint:
+            joint["fitted"], joint["curve"] = fit_and_curve(
+                trials, leader, seed=seed, quick=quick, executor=executor)
+        value = joint[key]
+        if isinstance(value, BaseException):
+            raise value
+        return value
+
     attempt("relevance", lambda: planning.parameter_relevance(
-        trials, leader, seed=seed, quick=quick, executor=executor))
-    attempt("learning_curve", lambda: planning.learning_curve(
-        trials, leader, seed=seed, quick=quick, executor=executor))
+        trials, leader, seed=seed, quick=quick, executor=executor,
+        fitted=joint_part("fitted")))
+    attempt("learning_curve", lambda: joint_part("curve"))
     attempt("cost", lambda: planning.cost_projection(
         trials, names, seed=seed, quick=quick, budget=next_budget,
         max_fit_seconds=max_fit_seconds, repeats=1, executor=executor))

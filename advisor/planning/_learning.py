@@ -70,6 +70,20 @@ def learning_curve(trials, surrogate_name: str, *, seed: int, quick: bool = Fals
         "still_improving", "flat_from_n", "reading", "rule", "failed_fits"}``;
         ``crps``/``nll`` are per-repeat values (None for a failed fit).
     """
+    tasks, ctx = _curve_tasks(trials, surrogate_name, seed=seed, quick=quick,
+                              fractions=fractions, repeats=repeats, test_share=test_share,
+                              make=make)
+    results = (executor or Executor()).map(_learning_task, tasks, label="learning curve")
+    return _curve_result(ctx, results)
+
+
+def _curve_tasks(trials, surrogate_name, *, seed, quick,
+                 fractions=(0.2, 0.35, 0.5, 0.7, 0.85, 1.0), repeats=None,
+                 test_share=0.2, make=make_surrogate):
+    """The learning curve's fit tasks (arguments of :func:`_learning_task`) and what
+    :func:`_curve_result` needs to read their results: split from
+    :func:`learning_curve` so that the assessment can run them in one task grid with
+    the relevance's full-data fit (``advisor.planning._joint``)."""
     _check_trials(trials)
     repeats = int(repeats or (5 if quick else 10))  # >= 5: the t-test has >= 4 df
     n = trials.n_used
@@ -91,8 +105,16 @@ def learning_curve(trials, surrogate_name: str, *, seed: int, quick: bool = Fals
         for m in sizes:
             tasks.append((make, surrogate_name, task_seed(seed, "learning", "fit", r, m),
                           quick, X, y, train[:m], test, groups))
-    out = np.array((executor or Executor()).map(_learning_task, tasks, label="learning curve"),
-                   dtype=float).reshape(repeats, len(sizes), 2)
+    ctx = {"surrogate": surrogate_name, "repeats": repeats, "sizes": sizes,
+           "n_test": n_test, "n_train_all": n_train_all}
+    return tasks, ctx
+
+
+def _curve_result(ctx, results) -> dict:
+    """The learning curve (see :func:`learning_curve`) from its tasks' results."""
+    repeats, sizes, n_test = ctx["repeats"], ctx["sizes"], ctx["n_test"]
+    n_train_all, surrogate_name = ctx["n_train_all"], ctx["surrogate"]
+    out = np.array(results, dtype=float).reshape(repeats, len(sizes), 2)
     crps, nll = out[..., 0], out[..., 1]
     points = []
     for j, m in enumerate(sizes):

@@ -344,7 +344,7 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
                         make: Callable = make_surrogate, n_base: int | None = None,
                         n_folds: int | None = None, n_repeats: int | None = None,
                         n_refits: int | None = None,
-                        executor: Executor | None = None) -> dict:
+                        executor: Executor | None = None, fitted=None) -> dict:
     """How much each parameter matters, as the fitted surrogate reads the logs.
 
     1. The surrogate is fitted on all successful trials; first-order ``S_i`` and total
@@ -406,6 +406,10 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
         Half-sample refits behind the Sobol intervals.
     executor : Executor, optional
         Runs the permutation folds and the refits.
+    fitted : (model, encoding), optional
+        The surrogate already fitted on every successful trial with seed
+        ``task_seed(seed, "relevance", "all")`` (what this function would fit); None
+        fits it here.
 
     Returns
     -------
@@ -423,8 +427,10 @@ def parameter_relevance(trials, surrogate_name: str, *, seed: int, quick: bool =
     n_refits = n_refits or (20 if quick else 40)
     space = trials.space
     y = trials.y
-    model, encoding = _fit_all(make, surrogate_name, task_seed(seed, "relevance", "all"),
-                               quick, trials)
+    # ``fitted``: this fit, made elsewhere (the assessment runs it in a worker beside the
+    # learning curve's fits, advisor.planning._joint); the same seed and data
+    model, encoding = fitted if fitted is not None else _fit_all(
+        make, surrogate_name, task_seed(seed, "relevance", "all"), quick, trials)
     X = space.encode(trials.used, encoding)
     blocks = _feature_blocks(space, encoding)
 
