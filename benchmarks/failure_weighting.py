@@ -38,15 +38,10 @@ from advisor.assessment._stages import _feasibility, _quick_model
 from advisor.backtest import FailureModel, plan_for, run_backtest
 from advisor.batching import weight_by_success
 from advisor.execution import Executor
+from sample_log_args import SAMPLE_LOGS  # benchmarks/, on the path when run as a script
 
 ROOT = Path(__file__).resolve().parent.parent
-LOGS = {
-    "fermentation_yield": dict(objective="yield_g_per_l", direction="maximize",
-                               campaign="batch_series", order="run", status="outcome",
-                               success=["ok"]),
-    "forecast_tuning": dict(objective="val_mape", campaign="search_round", order="trial",
-                            space=str(ROOT / "sample_logs" / "forecast_tuning.space.toml")),
-}
+LOGS = {k: v for k, v in SAMPLE_LOGS.items() if k != "moulding_warpage"}  # failed trials
 WAYS = ("none", "weighted", "unweighted", "no_cutoff")
 
 

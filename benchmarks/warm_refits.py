@@ -26,14 +26,10 @@ from advisor.acquisition import default_settings
 from advisor.assessment._stages import _quick_model
 from advisor.backtest import plan_for, run_backtest
 from advisor.execution import Executor
+from sample_log_args import SAMPLE_LOGS  # benchmarks/, on the path when run as a script
 
 ROOT = Path(__file__).resolve().parent.parent
-LOGS = {"moulding_warpage": dict(objective="warpage_mm", campaign="lot", order="run"),
-        "fermentation_yield": dict(objective="yield_g_per_l", direction="maximize",
-                                   campaign="batch_series", order="run", status="outcome",
-                                   success=["ok"]),
-        "forecast_tuning": dict(objective="val_mape", campaign="search_round", order="trial",
-                                space=str(ROOT / "sample_logs" / "forecast_tuning.space.toml"))}
+LOGS = SAMPLE_LOGS
 MODELS = ("campaign_gp", "gp")
 
 
