@@ -323,3 +323,30 @@ def test_the_joint_grid_gives_what_the_sections_give_apart():
     other = planning.parameter_relevance(trials, "campaign_gp", fitted=(part, encoding), **kw)
     assert any(abs(a["total"] - b["total"]) > 1e-3
                for a, b in zip(other["parameters"], own["parameters"]))
+
+
+def test_proposals_use_the_fit_they_are_given():
+    # The assessment passes the relevance's full-data fit to propose_batch (the plan
+    # fits the leader once). Given the fit it would make itself (same seed), the batch is
+    # identical; given another fit (on 60 trials), the predictions differ, so it is used.
+    from pathlib import Path
+
+    import advisor
+    from advisor import planning
+    from advisor.execution import task_seed
+    from advisor.planning._common import _fit_all
+    from advisor.surrogates import make_surrogate
+
+    root = Path(__file__).resolve().parent.parent
+    trials = advisor.load_trials(root / "sample_logs" / "moulding_warpage.csv",
+                                 objective="warpage_mm", campaign="lot", order="run")
+    kw = dict(seed=5, quick=True, n_pool=200)
+    own = planning.propose_batch(trials, "gp", "ei", 3, **kw)
+    same = _fit_all(make_surrogate, "gp", task_seed(5, "propose", "fit", 0), True, trials)
+    given = planning.propose_batch(trials, "gp", "ei", 3, fitted=same, **kw)
+    pd.testing.assert_frame_equal(own, given)
+    model, encoding = same
+    part = make_surrogate("gp", seed=0, quick=True)
+    part.fit(trials.space.encode(trials.used.iloc[:60], encoding), trials.y[:60])
+    other = planning.propose_batch(trials, "gp", "ei", 3, fitted=(part, encoding), **kw)
+    assert not np.allclose(other["predicted_mean"].to_numpy(), own["predicted_mean"].to_numpy())

@@ -197,9 +197,13 @@ def _plan(trials, rec, *, names, seed, quick, budget, propose, max_fit_seconds, 
         setting = AcquisitionSetting(rec["acquisition"]["name"], rec["acquisition"]["params"])
         try:
             feas_model = (feasibility or {}).get("_model")
+            full_fit = joint.get("fitted")
             proposals = planning.propose_batch(
                 trials, leader, setting, propose, seed=seed, quick=quick,
                 frozen=frozen or None,
+                # the relevance's full-data fit (same model, trials and budget): the
+                # plan fits the leader on all trials once
+                fitted=None if isinstance(full_fit, BaseException) else full_fit,
                 success_probability=None if feas_model is None else
                 feas_model.success_probability)
             if feas_model is not None:

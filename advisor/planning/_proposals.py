@@ -220,7 +220,8 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
                   quick: bool = False, frozen: Mapping | None = None,
                   make: Callable = make_surrogate, n_pool: int | None = None,
                   campaign_label: str = "next",
-                  success_probability: Callable | None = None) -> pd.DataFrame:
+                  success_probability: Callable | None = None,
+                  fitted=None) -> pd.DataFrame:
     """The first ``k`` settings of the next campaign.
 
     The surrogate is fitted once on every successful logged trial (warm start); its
@@ -270,6 +271,10 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
         ``settings frame -> P(success)`` from :mod:`advisor.feasibility`: the acquisition
         is weighted by it (candidates below ``batching.MIN_SUCCESS`` left out) and each
         proposal gets a ``p_success`` column.
+    fitted : (model, encoding), optional
+        The surrogate already fitted on every successful trial with ``make`` and
+        ``quick`` (the assessment passes the relevance's full-data fit, so the plan fits
+        the model once); None fits it here.
 
     Returns
     -------
@@ -301,8 +306,8 @@ def propose_batch(trials, surrogate_name: str, setting, k: int, *, seed: int,
                       RuntimeWarning, stacklevel=2)
         k = len(pool)
 
-    model, encoding = _fit_all(make, surrogate_name, task_seed(seed, "propose", "fit", 0),
-                               quick, trials)
+    model, encoding = fitted if fitted is not None else _fit_all(
+        make, surrogate_name, task_seed(seed, "propose", "fit", 0), quick, trials)
     X_pool = space.encode(pool, encoding)
     # A campaign-aware model is fitted with the logged campaigns and reads the pool as
     # a new campaign; its shared level is left out of the acquisition (_WithinNextCampaign).
