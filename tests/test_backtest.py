@@ -675,8 +675,51 @@ def test_power_in_the_real_outcomes_unit_divides_by_random_orders_final_regret()
     from advisor import decision
 
     text = decision._acquisition_statement("backtest", dict(wide, alpha=0.05), "m", {})
-    assert (f"but {wide['power_final_at_0.1']:.2f} for a gain of 0.1 in final regret "
-            "(random search = 1)") in text
+    assert wide["unit"] == narrow["unit"] == "final_over_random"
+    assert (f"power to find a gain of 0.1 in final regret (random search = 1) "
+            f"{wide['power_final_at_0.1']:.2f} (for a 0.1 AUC gain "
+            f"{wide['power_at_0.1']:.2f}): smaller real gains can go unseen") in text
+    assert "no setting beats it in final regret over random search's" in text
+    # 0.8 or more in the decision's unit: no "can go unseen" caveat
+    assert "go unseen" not in decision._acquisition_statement(
+        "backtest", dict(narrow, alpha=0.05), "m", {}).split("; on ")[0]
+
+
+def test_the_decision_reads_final_regret_over_random_search():
+    # A setting that ends lower (final regret) with an identical AUC: the AUC test sees
+    # nothing, the decision (in the final unit, random search = 1) picks it; and the
+    # reverse (a lower AUC, equal final regret) keeps the default.  Paired runs of two
+    # classes, 12 each, a shift of 0.5 (random = 1) against paired noise sd 0.1.
+    from advisor.backtest._choice import _decide
+
+    def backtest(final_shift, auc_shift):
+        rng = np.random.default_rng(3)
+        units = [f"f{i}" for i in range(8)]
+        runs = {lab: [] for lab in ("EI xi=0.01", "UCB beta=4")}
+        for u in units:
+            for s in range(3):
+                base = 1.0 + 0.2 * rng.standard_normal()
+                for lab in runs:
+                    shift = lab != "EI xi=0.01"
+                    runs[lab].append({"unit": u, "seed_index": s,
+                                      "auc": 0.3 + auc_shift * shift
+                                      + 0.01 * rng.standard_normal(),
+                                      "final_regret": base + final_shift * shift
+                                      + 0.1 * rng.standard_normal()})
+        results = [{"surrogate": "m", "error": None, "label": lab,
+                    "acquisition": {"name": lab.split()[0].lower()}, "runs": r}
+                   for lab, r in runs.items()]
+        return {"simulated": {"results": results,
+                              "functions": [{"id": u, "class": ("gp", "forest")[i % 2]}
+                                            for i, u in enumerate(units)],
+                              "random": {"per_unit_mean_final_regret": dict.fromkeys(
+                                  units, 1.0)}}}
+
+    late = _decide(backtest(final_shift=-0.5, auc_shift=0.0), "m", seed=0)
+    assert late["chosen"] == "UCB beta=4" and late["unit"] == "final_over_random"
+    assert not late["auc_test"]["beats_default"]
+    early = _decide(backtest(final_shift=0.0, auc_shift=-0.1), "m", seed=0)
+    assert early["chosen"] == "EI xi=0.01" and early["auc_test"]["beats_default"]
 
 
 # -- the recommended setting against random and grid search ------------------------------
@@ -798,3 +841,18 @@ def test_the_headline_carries_the_caveat_when_random_search_is_not_beaten():
         text = headline(SimpleNamespace(d={"recommendation": dict(
             rec, beats_random_search=flag)}))
         assert ("is not shown to beat random search" in text) is shown
+
+
+def test_backtest_runs_scale_the_simulated_runs_in_whole_standins(trials):
+    # --backtest-runs N / assess(backtest_runs=N): N paired runs per setting, rounded up
+    # to whole stand-ins of plan.sim_seeds starts each (quick: 3), every setting paired.
+    from advisor.assessment._stages import _run_backtest
+
+    out = _run_backtest(trials, ["baseline"], [AcquisitionSetting("ei", {"xi": 0.01}),
+                                               AcquisitionSetting("ucb")],
+                        seed=0, quick=True, budget=6, batch=1, executor=None, runs=7)
+    sim = out["simulated"]
+    assert out["config"]["plan"]["sim_functions"] == 3 and sim["runs_per_setting"] == 9
+    assert all(r["runs_count"] == 9 for r in sim["results"])
+    dec = out["per_surrogate"]["baseline"]["decision"]
+    assert dec["comparisons"][0]["runs"] <= 9 and dec["unit"] in ("final_over_random", "auc")

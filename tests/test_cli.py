@@ -102,6 +102,7 @@ def test_usage_errors_are_one_line(tmp_path, sample_log, capsys):
         ["assess", str(sample_log)],                                # missing --objective
         ["assess", str(sample_log), "--objective", "warpage_mm", "--seed", "x"],
         ["assess", str(sample_log), "--objective", "warpage_mm", "--budget", "0"],
+        ["assess", str(sample_log), "--objective", "warpage_mm", "--backtest-runs", "1"],
         ["assess", str(sample_log), "--objective", "nope", "--out", str(tmp_path)],
         ["frobnicate"],
         [],

@@ -277,8 +277,9 @@ def test_kept_default_states_its_measured_real_outcome():
 def test_kept_default_states_what_perfect_standins_would_find():
     # The ceiling the statement prints is the record of benchmarks/nondefault_ceiling.py
     # (the stored real campaigns of the true-winner cases, resampled and decided by the
-    # product's paired_decision): quick grid, 24 runs, the product's AUC unit, lowest and
-    # highest rate over the two cases, after 12 and after 30 trials.
+    # product's paired_decision): quick grid, 24 runs, the product's unit (final regret
+    # over random search's), lowest and highest rate over the two cases, after 12 and
+    # after 30 trials.
     import json
     from pathlib import Path
 
@@ -288,7 +289,7 @@ def test_kept_default_states_what_perfect_standins_would_find():
     for trials in (12, 30):
         rates = [r["true_pick_rate"] for r in res["cases"]
                  if r["section"] == "truth" and r["true_winners"] and r["grid"] == "quick"
-                 and r["n"] == ps["runs"] and r["unit"] == f"auc_{trials}"]
+                 and r["n"] == ps["runs"] and r["unit"] == f"final_{trials}"]
         assert len(rates) == 2
         assert ps[f"trials_{trials}"] == pytest.approx((min(rates), max(rates)), abs=0.005)
     dec = {"alpha": 0.05, "power_at_0.1": 0.9, "experiment": "simulated",

@@ -57,7 +57,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
            backtest: bool = True, plan: bool = True, freeze: bool = False,
            progress: Callable[[int, int, str], None] | None = None,
            command: str | None = None, campaign_order: Sequence[str] | None = None,
-           model_time_limit: float | None = 600.0, **load_options) -> Assessment:
+           model_time_limit: float | None = 600.0, backtest_runs: int | None = None,
+           **load_options) -> Assessment:
     """Cross-validate every candidate surrogate on ``trials`` and recommend one.
 
     Parameters
@@ -88,6 +89,12 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         Flag surrogates whose projected time per iteration exceeds this.
     backtest, plan : bool
         Run the acquisition backtest and the next-campaign plan (when available).
+    backtest_runs : int, optional
+        Paired simulated runs per surrogate and setting in the backtest (rounded up to
+        whole stand-ins: ``sim_seeds`` starts each).  Default: the plan's (24 quick, 32
+        thorough).  More runs buy power for the paired test against the default
+        (``power_final_at_0.1``) at a cost about proportional to the runs; see README
+        *Buying power*.
     model_time_limit : float or None
         Seconds a user's model (``module:Class``) may take over all of its validation
         folds; it runs in a process of its own that is killed after that, and is then
@@ -119,6 +126,9 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         if ":" not in n and n not in surrogate_names():
             raise UsageError(f"unknown surrogate '{n}'; known: " + ", ".join(surrogate_names()),
                              fix="pick listed names or give module:Class")
+    if backtest_runs is not None and int(backtest_runs) < 2:
+        raise UsageError(f"backtest_runs={backtest_runs}: the paired test needs at least 2 "
+                         "runs per setting", fix="pass 2 or more (the default is 24 quick)")
     if batch < 1 or (budget is not None and budget < 3) or propose < 0:
         raise UsageError(f"batch={batch}, budget={budget}, propose={propose}: batch must be "
                          "at least 1, budget at least 3, propose at least 0",
@@ -197,7 +207,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
             backtest_out = _run_backtest(trials, candidates, settings, seed=seed,
                                          quick=quick, budget=budget, batch=batch,
                                          executor=executor,
-                                         failure_model=(feasibility_out or {}).get("_model"))
+                                         failure_model=(feasibility_out or {}).get("_model"),
+                                         runs=backtest_runs)
             # Ties and the pair: only the paired test over the same simulated runs
             # decides (advisor.decision); a backtest score alone reorders nothing.
             opt_test = decision.optimization_test(

@@ -116,12 +116,15 @@ def _quick_model(name: str, seed: int = 0, quick: bool = True, **options):
 
 
 def _run_backtest(trials, candidates, settings, *, seed, quick, budget, batch, executor,
-                  failure_model=None):
+                  failure_model=None, runs=None):
     from ..backtest import FailureModel, plan_for, run_backtest
 
+    plan = plan_for(quick)
+    if runs is not None:   # whole stand-ins, each run from plan.sim_seeds starts
+        plan = plan_for(quick, sim_functions=max(2, -(-int(runs) // plan.sim_seeds)))
     out = run_backtest(trials, candidates, settings, seed=seed, quick=quick,
                        budget=budget, batch=batch, executor=executor,
-                       make=_quick_model, plan=plan_for(quick),
+                       make=_quick_model, plan=plan,
                        failures=None if failure_model is None else FailureModel(failure_model))
     out["candidates_rule"] = _CANDIDATE_RULE
     return out
