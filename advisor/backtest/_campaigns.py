@@ -90,9 +90,11 @@ Budgets (each a field of :class:`BacktestPlan`, quick / full):
 
 Quick mode thus makes 24 paired runs per setting, thorough 32: enough that a true AUC
 difference of 0.1 is found at the strictest Holm level with power >= 0.8 on the logs
-measured (``power_at_0.1`` in each decision; README "What the backtest runs").  The
-class defaults (``plan=BacktestPlan()``) keep exhaustive values: full fits at every
-step.
+measured (``power_at_0.1`` in each decision; README "What the backtest runs"), but not
+a difference of 0.1 in final regret over random search's, the unit the decision reads
+since stop 29 (``power_final_at_0.1``, 0.0-0.2 on the sample logs); more runs
+(``sim_functions``, set by ``assess(backtest_runs=)``) buy that power.  The class
+defaults (``plan=BacktestPlan()``) keep exhaustive values: full fits at every step.
 
 The simulated budget defaults to the median campaign size of the log (the size of the
 next campaign is most likely like the past ones).  With ``batch = q > 1`` each step picks

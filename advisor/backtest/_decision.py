@@ -2,7 +2,10 @@
 
 Every setting is compared with the default (EI, xi = 0.01) over the runs both completed
 from the same start (a paired design), by the one-sided Wilcoxon signed-rank test of
-"the setting's normalized-regret AUC is lower" (Wilcoxon 1945; zero differences
+"the setting's value is lower" (Wilcoxon 1945; the value is whatever the caller passes:
+the assessment passes each run's final regret over random order's mean final regret on
+the same stand-in since stop 29, the normalized-regret AUC before, see
+``_choice._decide``; zero differences
 dropped, Wilcoxon's own convention; exact conditional null distribution, equal to
 scipy.stats.wilcoxon's exact and permutation p-values, see ``_one_sided_p``).  The grid's multiplicity is
 controlled by Holm's step-down procedure (Holm 1979) at family-wise level ``alpha``.
@@ -160,7 +163,8 @@ def paired_decision(values: dict, default: str, alpha: float = ALPHA,
     Parameters
     ----------
     values : {label: {run key: float}}
-        Lower is better (normalized-regret AUC); run keys pair the runs.
+        Lower is better (final regret over random's, or normalized-regret AUC); run
+        keys pair the runs.
     default : str
         Label of the default setting (must be in ``values``).
     strata : {run key: str}, optional
