@@ -353,14 +353,12 @@ def _setting_dict(backtest_out, label):
 #: the GPs' scheduled re-fits full instead of warm-started: 0 of 20 again, the f87afd1
 #: rows kept as variant ``benchmark_warm_s27``), and the one-sided 95% upper bound of
 #: that rate (exact binomial, Clopper & Pearson 1934).  The earlier record, 0 of 30
-#: (bound 0.095) with 12-trial runs, is kept as variant ``benchmark_trials12``.  These
-#: decisions read the normalized-regret AUC (the unit until stop 29); decided on final
-#: regret over random search's (the unit since stop 29) the same kind of runs picked 0
-#: of 20 too (section ``unit_full_refits``: the backtest alone, GP, the full grid, runs
-#: of 30 trials), and the product's quick assessment with the new unit kept the default
-#: on the 10 logs it reached before the session ended (Levy-3 seeds 0-5, Branin 0.2
-#: seeds 0-3; the ``assess`` rerun was not completed, so the file's rows are the AUC
-#: ones).  Kept beside
+#: (bound 0.095) with 12-trial runs, is kept as variant ``benchmark_trials12``.
+#: Re-measured at stop 29 (2026-12-03, commit 2badac8) with the decision in final regret
+#: over random search's: 0 of 20 again (Levy-3 10, Branin 0.2 10; the true winner in the
+#: quick grid had the right sign on 5 and 7 of the 10 logs); the AUC-decided rows are
+#: kept as variant ``benchmark_auc_s28``.  On two controls with no true winner
+#: (Branin 0.05, Michalewicz-2 0.05, 10 logs each) no false pick either (0 of 20).  Kept beside
 #: the statement so the printed sentence carries its own measured outcome;
 #: ``tests/test_decision.py`` checks it against the results file.
 REAL_DETECTION = {"picked": 0, "logs": 20, "upper_95": 0.139,

@@ -12,11 +12,25 @@ differences shifted by 0.1, exact one-sided signed-rank test at the strictest Ho
 found in both stand-in classes) is then run with the observed differences repeated 1, 4
 and 16 times, as if 1x, 4x and 16x as many runs had the same spread.  Writes
 ``benchmarks/results/final_unit_power.json``; about a minute on 2 cores.
+
+    python benchmarks/final_unit_power.py --measure 24,96,384
+
+measures instead of extrapolating (stop 29, when the decision moved to this unit and
+``--backtest-runs`` came): the same backtest run with N paired runs per setting
+(``sim_functions`` = ceil(N / 3) stand-ins of 3 starts, as ``assess(backtest_runs=N)``
+makes them), decided by the product's own ``_decide``: its power for 0.1 in final regret
+(``power_final_at_0.1``) and of AUC, the chosen setting, the smallest adjusted p, the
+paired runs and the wall seconds of the backtest with 2 worker processes (and the load
+average at its end: on a shared machine the wall time depends on other work).  Written
+under ``measured`` in the same file.
 """
 
 from __future__ import annotations
 
+import argparse
 import json
+import os
+import time
 from pathlib import Path
 
 import numpy as np
@@ -35,7 +49,49 @@ LOGS = SAMPLE_LOGS
 DEFAULT = "EI xi=0.01"
 
 
-def main():
+def measure(ns, jobs=2):
+    """The product's decision with N paired runs per setting, for each N in ``ns``."""
+    from advisor.backtest._choice import _decide
+
+    res = {}
+    for name, kw in LOGS.items():
+        trials = advisor.load_trials(ROOT / "sample_logs" / f"{name}.csv", **kw)
+        for n in ns:
+            plan = plan_for(True, sim_functions=max(2, -(-n // 3)))
+            t0 = time.perf_counter()
+            out = run_backtest(trials, ["campaign_gp"], default_settings(True), seed=0,
+                               quick=True, batch=1, executor=Executor(jobs=jobs),
+                               make=_quick_model, plan=plan)
+            dec = _decide(out, "campaign_gp", 0)
+            row = {"runs_asked": n, "runs_per_setting": out["simulated"]["runs_per_setting"],
+                   "paired_runs": max(c["runs"] for c in dec["comparisons"]),
+                   "unit": dec["unit"], "chosen": dec["chosen"],
+                   "min_p_holm": min(c["p_holm"] for c in dec["comparisons"]),
+                   "mean_differences": {c["label"]: c["mean_difference"]
+                                        for c in dec["comparisons"]},
+                   "power_final_at_0.1": dec["power_final_at_0.1"],
+                   "power_at_0.1": dec["power_at_0.1"],
+                   "wall_seconds": time.perf_counter() - t0,
+                   "load_average_end": os.getloadavg()[0]}
+            res.setdefault(name, []).append(row)
+            print(name, row, flush=True)
+    path = ROOT / "benchmarks" / "results" / "final_unit_power.json"
+    doc = json.loads(path.read_text()) if path.exists() else {}
+    doc["measured"] = {"seed": 0, "surrogate": "campaign_gp", "jobs": jobs,
+                       "note": "the backtest alone, quick plan and grid, no failure models",
+                       "logs": res}
+    path.write_text(json.dumps(doc, indent=2) + "\n")
+    print(f"wrote {path}")
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--measure", help="comma-separated run counts to measure")
+    ap.add_argument("--jobs", type=int, default=2)
+    args = ap.parse_args(argv)
+    if args.measure:
+        measure([int(v) for v in args.measure.split(",")], jobs=args.jobs)
+        return
     doc = {"seed": 0, "surrogate": "campaign_gp", "delta": 0.1, "logs": {}}
     for name, kw in LOGS.items():
         trials = advisor.load_trials(ROOT / "sample_logs" / f"{name}.csv", **kw)
