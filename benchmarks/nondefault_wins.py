@@ -214,10 +214,12 @@ def _decision_row(dec, sim, recommended, leader) -> dict:
             "sim_median_final": finals}
 
 
-def _assess_row(trials, seed) -> dict:
-    """The product's assessment, as the benchmark runs it."""
+def _assess_row(trials, seed, backtest_runs=None) -> dict:
+    """The product's assessment, as the benchmark runs it (``backtest_runs``: as
+    ``--backtest-runs``, for the variants ``benchmark_r<N>``)."""
     with threadpool_limits(1):
-        a = assess(trials, seed=seed, quick=True, jobs=1, plan=False)
+        a = assess(trials, seed=seed, quick=True, jobs=1, plan=False,
+                   backtest_runs=backtest_runs)
     rec = a.recommendation
     bt = a.backtest or {}
     dec = (bt.get("per_surrogate", {}).get(rec["surrogate"]) or {}).get("decision") or {}
@@ -257,7 +259,8 @@ def _past_logs(cases, log_seeds):
 
 
 def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> dict:
-    """``variants``: ``benchmark`` (:func:`_assess_row`), ``b30`` (backtest alone with
+    """``variants``: ``benchmark`` (:func:`_assess_row`), ``benchmark_r<N>`` (the same
+    with ``backtest_runs=N``), ``b30`` (backtest alone with
     the next campaign's budget, 30 trials, and start, d + 1 points), ``b12`` (the
     same at the quick plan's 12 trials and d + 1 starts)."""
     out = {}
@@ -266,6 +269,8 @@ def part_assess(cases, log_seeds, variants=("benchmark",), progress=print) -> di
             t0 = time.process_time()
             if v == "benchmark":
                 row = _assess_row(trials, s)
+            elif v.startswith("benchmark_r"):   # e.g. benchmark_r384: --backtest-runs 384
+                row = _assess_row(trials, s, backtest_runs=int(v[len("benchmark_r"):]))
             elif v == "b30":
                 row = _backtest_row(trials, s, 30, d + 1)
             elif v == "b12":
