@@ -10,8 +10,10 @@ validation schemes combine into the recommendation, and how it is stated.
   pair: the leader for calibrated predictions, the other for the optimization loop.
   The table keeps the calibration order (calibration tracks optimization regret across
   model types but not within one: Foldager, Jordahn, Hansen & Andersen 2023).
-* **The test** (both uses): each close model's normalized-regret AUC with the default
-  setting (EI, xi = 0.01) against the leader's over the same simulated campaigns
+* **The test** (both uses): each close model's runs with the default setting (EI,
+  xi = 0.01), in the setting decision's unit (final regret over random search's since
+  stop 29, :func:`runs_unit`; the normalized-regret AUC before and as the fallback),
+  against the leader's over the same simulated campaigns
   (paired by stand-in and start; every surrogate gets the same starts and noise),
   one-sided Wilcoxon signed-rank (Wilcoxon 1945), Holm over the close models (Holm
   1979), level 0.05 (:func:`advisor.backtest.paired_surrogate_test`).  The pool replay
@@ -86,40 +88,73 @@ def close_candidates(table, leader: str | None = None, margin: float = PAIR_MARG
     return tied + near
 
 
-def default_setting_runs(backtest: dict | None) -> dict:
-    """{surrogate: {(stand-in, start): AUC}} of the default setting in the simulated
-    campaigns (empty when none ran)."""
+def default_setting_runs(backtest: dict | None, unit: str = "auto") -> dict:
+    """{surrogate: {(stand-in, start): value}} of the default setting in the simulated
+    campaigns (empty when none ran).
+
+    ``unit``: ``"final_over_random"`` (each run's final regret over random order's mean
+    final regret on its stand-in, random search = 1: the unit the setting decision reads
+    since stop 29, :func:`advisor.backtest._choice._decide`), ``"auc"`` (the
+    normalized-regret AUC), or ``"auto"`` (the first when random order's final regrets
+    are recorded and some is positive, else the AUC).  The unit used is in
+    :func:`runs_unit`."""
     sec = (backtest or {}).get("simulated") or {}
     if sec.get("error"):
         return {}
     label = next((c["decision"]["default"] for c in
                   ((backtest or {}).get("per_surrogate") or {}).values()
                   if (c.get("decision") or {}).get("default")), DEFAULT_LABEL)
+    if unit == "auto":
+        unit = runs_unit(backtest)
+    rnd = (sec.get("random") or {}).get("per_unit_mean_final_regret") or {}
     out = {}
     for r in sec.get("results") or []:
         if r.get("label") == label and not r.get("error") and r.get("runs"):
-            out[r["surrogate"]] = {(run["unit"], run["seed_index"]): run["auc"]
-                                   for run in r["runs"]}
+            if unit == "final_over_random":
+                out[r["surrogate"]] = {
+                    (run["unit"], run["seed_index"]): run["final_regret"] / rnd[run["unit"]]
+                    for run in r["runs"] if run.get("final_regret") is not None
+                    and rnd.get(run["unit"], 0) > 0}
+            else:
+                out[r["surrogate"]] = {(run["unit"], run["seed_index"]): run["auc"]
+                                       for run in r["runs"]}
     return out
+
+
+def runs_unit(backtest: dict | None) -> str:
+    """The unit :func:`default_setting_runs` reads by default: ``"final_over_random"``
+    when random order's mean final regret is recorded and positive on some stand-in,
+    else ``"auc"``."""
+    sec = (backtest or {}).get("simulated") or {}
+    rnd = (sec.get("random") or {}).get("per_unit_mean_final_regret") or {}
+    return "final_over_random" if any(v > 0 for v in rnd.values()) else "auc"
 
 
 def optimization_test(backtest: dict | None, reference: str | None, candidates) -> dict | None:
     """The paired test of the close models against the calibration leader, or None when
-    there is nothing to test (no simulated runs for the leader, or no close model)."""
-    runs = default_setting_runs(backtest)
+    there is nothing to test (no simulated runs for the leader, or no close model).
+    In the unit of the setting decision (:func:`runs_unit`): the issue asks for "the
+    same paired test"."""
+    unit = runs_unit(backtest)
+    runs = default_setting_runs(backtest, unit)
     cands = [c for c in candidates if c != reference]
     if reference is None or reference not in runs or not cands:
         return None
     tested = [c for c in cands if c in runs]
     out = paired_surrogate_test(runs, reference, tested)
     out["experiment"] = "simulated"
-    out["metric"] = "normalized-regret AUC with the default setting, paired by run"
+    out["unit"] = unit
+    out["metric"] = ("final regret over random search's with the default setting, "
+                     "paired by run" if unit == "final_over_random" else
+                     "normalized-regret AUC with the default setting, paired by run")
     out["not_backtested"] = [c for c in cands if c not in runs]
     return out
 
 
-def _p_text(c: dict, alpha: float) -> str:
-    return (f"mean AUC difference {c['mean_difference']:+.3f} over {c['runs']} paired "
+def _p_text(c: dict, alpha: float, unit: str = "auc") -> str:
+    what = ("final-regret difference (random search = 1)" if unit == "final_over_random"
+            else "AUC difference")
+    return (f"mean {what} {c['mean_difference']:+.3f} over {c['runs']} paired "
             f"simulated runs, one-sided Wilcoxon, Holm-adjusted p = {c['p_holm']:.3g}"
             f" {'<' if c['p_holm'] < alpha else '>='} {alpha}")
 
@@ -147,7 +182,7 @@ def tie_and_pair(table, test: dict | None, acquisitions: dict | None = None):
     best_any = min(sig, key=lambda c: c["mean_difference"]) if sig else None
     if winner is not None:
         evidence = (f"the paired backtest test says {winner['surrogate']} optimizes better "
-                    f"than {leader} ({_p_text(winner, alpha)})")
+                    f"than {leader} ({_p_text(winner, alpha, test.get('unit', 'auc'))})")
     else:
         tested = [c for c in test["comparisons"] if c["surrogate"] in tied]
         evidence = ("; ".join(f"{c['surrogate']} vs {leader}: Holm-adjusted p = "
@@ -163,11 +198,12 @@ def tie_and_pair(table, test: dict | None, acquisitions: dict | None = None):
         pair = {"calibration": leader, "optimization": name,
                 "optimization_acquisition": (acquisitions or {}).get(name, DEFAULT_LABEL),
                 "tied": bool(is_tied), "crps_gap_relative": gap, "margin": PAIR_MARGIN,
-                "test": test["test"], "level": alpha, "experiment": "simulated",
+                "test": test["test"], "unit": test.get("unit", "auc"), "level": alpha,
+                "experiment": "simulated",
                 "runs": chosen["runs"], "mean_difference": chosen["mean_difference"],
                 "p_value": chosen["p_value"], "p_holm": chosen["p_holm"]}
         why = (f"{name} optimizes better than {leader} in the simulated campaigns "
-               f"({_p_text(chosen, alpha)}), and its calibration is "
+               f"({_p_text(chosen, alpha, test.get('unit', 'auc'))}), and its calibration is "
                + ("statistically tied with the leader's (95% model confidence set), so it "
                   "is recommended and the leader stays the model for calibrated "
                   "predictions" if is_tied else

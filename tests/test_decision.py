@@ -299,3 +299,31 @@ def test_kept_default_states_what_perfect_standins_would_find():
     text = decision._acquisition_statement("backtest", dec, "gp", {})
     lo, hi = ps["trials_30"]
     assert f"{lo:.0%}-{hi:.0%} with runs of 30" in text
+
+
+def test_the_pair_test_reads_the_setting_decisions_unit():
+    # The same paired test as the setting decision, in its unit: a model that ends
+    # lower (final regret over random search's, random = 1) with an identical AUC is
+    # found better; without random order's final regrets the AUC is read (nothing to
+    # find here).  8 stand-ins x 2 starts, a shift of 0.5 against paired noise sd 0.1.
+    rng = np.random.default_rng(4)
+    base = rng.uniform(0.5, 1.5, (8, 2))
+    results = []
+    for name, shift in (("gp", 0.0), ("dngo", -0.5)):
+        runs = [{"unit": f"f{f}", "seed_index": s, "auc": 0.3,
+                 "final_regret": float(base[f, s] + shift + 0.1 * rng.standard_normal())}
+                for f in range(8) for s in range(2)]
+        results.append({"surrogate": name, "label": decision.DEFAULT_LABEL, "error": None,
+                        "runs": runs})
+    bt = {"simulated": {"error": None, "results": results,
+                        "random": {"per_unit_mean_final_regret": {f"f{f}": 1.0
+                                                                  for f in range(8)}}}}
+    test = decision.optimization_test(bt, "gp", ["dngo"])
+    assert test["unit"] == "final_over_random" and test["better"] == "dngo"
+    table = _table([("gp", 1.0, False), ("dngo", 1.0, True)])
+    _, _, pair = decision.tie_and_pair(table, test)
+    assert pair["unit"] == "final_over_random"
+    assert "final-regret difference (random search = 1)" in pair["statement"]
+    del bt["simulated"]["random"]
+    auc = decision.optimization_test(bt, "gp", ["dngo"])
+    assert auc["unit"] == "auc" and auc["better"] is None

@@ -24,7 +24,8 @@ next-campaign benchmark (``benchmarks/next_campaign.py``).
 The same test compares *surrogates* (:func:`paired_surrogate_test`): each candidate's
 default-setting runs against the reference model's over the same stand-ins and starts
 (the simulated campaigns give every surrogate the same starts and noise), one-sided
-"the candidate's AUC is lower", Holm over the candidates.  The ranking uses it to let
+"the candidate's value is lower" (in the unit the caller passes), Holm over the
+candidates.  The ranking uses it to let
 the backtest break a calibration tie, and the recommendation to name a pair (one model
 for calibration, another for optimization), only when it is significant.
 
@@ -53,9 +54,9 @@ __all__ = ["paired_decision", "holm_adjust", "paired_power", "paired_surrogate_t
 
 ALPHA = 0.05
 TEST_NAME = "one-sided Wilcoxon signed-rank vs the default, Holm-adjusted"
-SURROGATE_TEST_NAME = ("one-sided Wilcoxon signed-rank of the default setting's "
-                       "normalized-regret AUC vs the reference model over the same "
-                       "simulated runs, Holm-adjusted over the candidates")
+SURROGATE_TEST_NAME = ("one-sided Wilcoxon signed-rank of the default setting's runs "
+                       "(in the unit the test states) vs the reference model over the "
+                       "same simulated runs, Holm-adjusted over the candidates")
 BASELINE_TEST_NAME = ("one-sided tests of the recommended setting against random search "
                       "(a stratified placement test among its shuffles from the same "
                       "start) and grid search (Wilcoxon signed-rank against the design "
@@ -310,8 +311,9 @@ def paired_surrogate_test(values: dict, reference: str, candidates,
     Parameters
     ----------
     values : {surrogate: {run key: float}}
-        Each model's normalized-regret AUC with the default setting (lower is better);
-        run keys (stand-in, start) pair the runs across models.
+        Each model's value with the default setting, lower is better (the assessment
+        passes final regret over random search's since stop 29, the AUC before); run
+        keys (stand-in, start) pair the runs across models.
     reference : str
         The model to beat (the calibration leader).
     candidates : iterable of str
