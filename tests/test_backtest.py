@@ -856,3 +856,60 @@ def test_backtest_runs_scale_the_simulated_runs_in_whole_standins(trials):
     assert all(r["runs_count"] == 9 for r in sim["results"])
     dec = out["per_surrogate"]["baseline"]["decision"]
     assert dec["comparisons"][0]["runs"] <= 9 and dec["unit"] in ("final_over_random", "auc")
+
+
+class _FailsOnSeeds:
+    """The baseline model, except that it raises when built with one of ``bad`` seeds
+    (the backtest gives each simulated run its own model seed, so this fails exactly
+    the runs those seeds belong to)."""
+
+    bad: set = set()
+
+    def __init__(self, seed=0, quick=False):
+        self.seed, self.inner = seed, make_surrogate("baseline", seed=seed, quick=quick)
+
+    def fit(self, X, y):
+        if self.seed in self.bad:
+            raise FloatingPointError("an occasional numerical failure, on purpose")
+        self.inner.fit(X, y)
+        return self
+
+    def predict(self, X):
+        return self.inner.predict(X)
+
+
+def make_with_failing_seeds(name, seed=0, quick=False):
+    if name.startswith("fails"):
+        return _FailsOnSeeds(seed, quick)
+    return make_surrogate(name, seed=seed, quick=quick)
+
+
+def test_a_few_failed_runs_drop_out_and_many_fail_the_setting(trials):
+    # 10 stand-ins x 2 starts = 20 runs per setting; "fails1" raises in 2 of them (10%:
+    # kept, the other 18 runs stay and the decision runs on them), "fails3" in 3 (15%:
+    # the setting is recorded as failed, as every failure was before stop 29).
+    from advisor.execution import task_seed
+
+    plan = plan_for(True, **dict(SMALL, sim_functions=10, sim_seeds=2, replay=False))
+    seed = 5
+    runs = [(f"f{f}", s) for f in range(10) for s in range(2)]
+    _FailsOnSeeds.bad = ({task_seed(seed, "model", "fails1", "simulated", u, s)
+                          for u, s in runs[:2]}
+                         | {task_seed(seed, "model", "fails3", "simulated", u, s)
+                            for u, s in runs[5:8]})
+    settings = [AcquisitionSetting("ei", {"xi": 0.01}), AcquisitionSetting("ucb")]
+    bt = run_backtest(trials, ["fails1", "fails3"], settings, seed=seed, quick=True,
+                      make=make_with_failing_seeds, plan=plan)
+    by = {(r["surrogate"], r["label"]): r for r in bt["simulated"]["results"]}
+    for label in ("EI xi=0.01", "UCB beta=4"):
+        kept, lost = by[("fails1", label)], by[("fails3", label)]
+        assert kept["error"] is None and kept["runs_failed"] == 2
+        assert kept["runs_count"] == 18
+        assert {(r["unit"], r["seed_index"]) for r in kept["runs"]}.isdisjoint(runs[:2])
+        assert lost["error"].startswith("FloatingPointError") and lost["runs_count"] == 0
+        assert lost["runs_failed"] == 3
+    rec = {(f["surrogate"], f["label"]): f for f in bt["failures"]}
+    assert rec[("fails1", "EI xi=0.01")]["completed_runs_kept"] is True
+    assert rec[("fails3", "EI xi=0.01")]["completed_runs_kept"] is False
+    assert bt["per_surrogate"]["fails1"]["decision"]["comparisons"][0]["runs"] <= 18
+    assert bt["per_surrogate"]["fails3"]["decision"]["chosen"] is None
