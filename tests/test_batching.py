@@ -16,6 +16,7 @@ from advisor import planning as P
 from advisor.acquisition import AcquisitionSetting, acquisition_values
 from advisor.logs import load_trials
 from advisor.planning import _proposals
+from conftest import load_script
 
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_logs"
@@ -196,14 +197,8 @@ def test_thompson_batch_is_distinct_and_reproducible():
 
 
 # -- batch diversity on the sample logs -------------------------------------------------
-RUNS = {
-    "moulding_warpage": dict(objective="warpage_mm", campaign="lot", order="run"),
-    "fermentation_yield": dict(objective="yield_g_per_l", direction="maximize",
-                               campaign="batch_series", order="run", status="outcome",
-                               success=["ok"]),
-    "forecast_tuning": dict(objective="val_mape", campaign="search_round", order="trial",
-                            space=SAMPLES / "forecast_tuning.space.toml"),
-}
+#: How `make demo` loads the three sample logs: one definition, shared with the benchmarks.
+RUNS = load_script("benchmarks/sample_log_args.py").SAMPLE_LOGS
 
 #: The K = 5 proposals' closest pair must be at least this fraction of a random batch's
 #: (mean over 500 uniform batches).  Measured (GP, quick, seeds 0 and 1): local
