@@ -418,6 +418,18 @@ def _rate_range(pair) -> str:
     return f"{lo:.0%}" if lo == hi else f"{lo:.0%}-{hi:.0%}"
 
 
+def _detectable_text(dg) -> str:
+    """What gain the runs can see, from ``decision.detectable_gain``."""
+    if not dg:
+        return ""
+    top = dg["largest_possible_gain"]
+    if dg.get("gain") is None:
+        return (f"; not even a setting that ended every run at the optimum (a gain of "
+                f"{top:.2f}) would be found 80% of the time")
+    return (f"; 80% of the time these runs find only a gain of {dg['gain']:.2f} or more "
+            f"(at most {top:.2f} is possible)")
+
+
 def _acquisition_statement(source: str, decision: dict, leader: str, backtest_out) -> str:
     """The acquisition evidence in one sentence, with its test and level."""
     if source != "backtest":
@@ -434,7 +446,11 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
     # search's (random search = 1, the unit real next campaigns are judged in); its
     # power for a 0.1 gain there is what the runs can see.  The power for 0.1 of AUC
     # (a large gain) is given beside it for comparison with the earlier releases.
-    if final_unit:
+    level = decision.get("final_mean_level")
+    if final_unit and pfinal is None and level is not None and level <= 0.1:
+        ptxt = (f"; the settings' runs end on average at {level:.2f} of random search's "
+                "final regret, so no setting can gain 0.1 there")
+    elif final_unit:
         ptxt = "" if pfinal is None else (
             f"; power to find a gain of 0.1 in final regret (random search = 1) "
             f"{pfinal:.2f}" + ("" if power is None else
@@ -448,6 +464,8 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
             ("" if pfinal is None else f", but {pfinal:.2f} for a gain of 0.1 in final "
                                        "regret (random search = 1)")
             + ": smaller real gains can go unseen")
+    if final_unit and pfinal is not None and pfinal < 0.8:
+        ptxt += _detectable_text(decision.get("detectable_gain"))
     unit = (" in final regret over random search's" if final_unit else " in AUC")
     rd = REAL_DETECTION
     ps = PERFECT_STANDINS
@@ -547,6 +565,8 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
         "p_holm": {c["label"]: c["p_holm"] for c in decision.get("comparisons", [])},
         "power_at_0.1": decision.get("power_at_0.1"),
         "power_final_at_0.1": decision.get("power_final_at_0.1"),
+        "final_mean_level": decision.get("final_mean_level"),
+        "detectable_gain": decision.get("detectable_gain"),
         "versus_baselines": decision.get("versus_baselines"),
         "baseline_statement": vs_base,
         "real_detection": {**REAL_DETECTION, "perfect_standins": {

@@ -299,6 +299,12 @@ def test_kept_default_states_what_perfect_standins_would_find():
     text = decision._acquisition_statement("backtest", dec, "gp", {})
     lo, hi = ps["trials_30"]
     assert f"{lo:.0%}-{hi:.0%} with runs of 30" in text
+    # runs that end on average within 0.1 of the optimum: no power is claimed
+    dec.update({"unit": "final_over_random", "power_final_at_0.1": None,
+                "final_mean_level": 0.06})
+    text = decision._acquisition_statement("backtest", dec, "gp", {})
+    assert "end on average at 0.06 of random search's final regret" in text
+    assert "power to find a gain of 0.1 in final regret" not in text
 
 
 def test_the_pair_test_reads_the_setting_decisions_unit():

@@ -22,10 +22,11 @@ from ._standins import STANDIN_CLASSES, mixed_standins
 from ._failures import FailureModel
 from ._decision import (ALPHA, BASELINE_TEST_NAME, SURROGATE_TEST_NAME, TEST_NAME,
                         baseline_test, holm_adjust, paired_decision, paired_power,
+                        proportional_power, detectable_gain,
                         paired_surrogate_test)
 
 __all__ = ["BacktestPlan", "plan_for", "run_backtest", "choose_setting", "replay_pool",
            "posterior_standins", "StandIns", "campaign_pools", "paired_decision",
-           "holm_adjust", "paired_power", "paired_surrogate_test", "ALPHA", "TEST_NAME",
+           "holm_adjust", "paired_power", "proportional_power", "detectable_gain", "paired_surrogate_test", "ALPHA", "TEST_NAME",
            "SURROGATE_TEST_NAME", "BASELINE_TEST_NAME", "baseline_test", "grid_design", "grid_levels", "mixed_standins",
            "STANDIN_CLASSES", "replay_paired_test", "FailureModel"]

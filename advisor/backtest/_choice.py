@@ -30,11 +30,15 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
     trials, quick grid): the gains come late in a run and an average over the run
     dilutes them.  The AUC test is still run and reported (``auc_test``); when no run
     has a positive random-order final regret (random search always ends at the
-    optimum) the AUC decides and ``unit`` says so.  Power (``paired_power``, simulated
-    from the observed paired spread): ``power_final_at_0.1`` in the decision's unit,
-    ``power_at_0.1`` for 0.1 of AUC.
+    optimum) the AUC decides and ``unit`` says so.  Power: ``power_final_at_0.1`` in
+    the decision's unit (``proportional_power``: a proportional gain, since stop 30; the
+    shift model before overstated the realized rate on runs tied at the optimum),
+    ``power_at_0.1`` for 0.1 of AUC (``paired_power``, the observed spread shifted);
+    ``detectable_gain`` (``_decision.detectable_gain``): the smallest proportional gain
+    in the decision's unit these runs find with power 0.8.
     """
-    from ._decision import paired_decision, paired_power
+    from ._decision import (detectable_gain, paired_decision, paired_power,
+                            proportional_power)
 
     part = None
     for cand in ("simulated", "replay"):
@@ -79,16 +83,24 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
                          "(simulated from the observed paired spread, strictest Holm step"
                          + (", found within every stand-in class" if n_classes > 1 else "")
                          + ")")
-    fbase = final.get(DEFAULT_LABEL, {})
-    fdiffs = [np.array([v[k] - fbase[k] for k in sorted(set(v) & set(fbase))])
-              for lab, v in final.items() if lab != DEFAULT_LABEL]
-    out["power_final_at_0.1"] = (paired_power(fdiffs, max(1, len(fdiffs)), rng,
-                                              n_classes=n_classes) if fdiffs else None)
-    out["power_final_note"] = ("the same chance for a gain of 0.1 in final regret over "
-                               "random order's mean final regret on the same stand-in or "
-                               "campaign (random search = 1, the decision's unit and the "
-                               "one real campaigns are judged in), after the runs' own "
-                               "number of trials")
+    # in the final unit a shift is no model of a gain (zero-inflated: runs tied at the
+    # optimum), see _decision.proportional_power
+    out["power_final_at_0.1"] = (proportional_power(final, DEFAULT_LABEL, rng,
+                                                    strata=strata) if use_final else None)
+    out["detectable_gain"] = (detectable_gain(final, DEFAULT_LABEL, rng, strata=strata)
+                              if use_final else None)
+    level = [v for lab, runs in final.items() if lab != DEFAULT_LABEL
+             for v in runs.values()] + list(final.get(DEFAULT_LABEL, {}).values())
+    out["final_mean_level"] = float(np.mean(level)) if level else None
+    out["power_final_note"] = (
+        "the same chance for a setting whose runs end proportionally lower, by 0.1 on "
+        "average, in final regret over random order's mean final regret on the same "
+        "stand-in or campaign (random search = 1, the decision's unit and the one real "
+        "campaigns are judged in; runs that end at the optimum stay there), after the "
+        "runs' own number of trials; None when the settings' runs end on average within "
+        "0.1 of the optimum (final_mean_level), where no setting can gain 0.1; "
+        "detectable_gain: the smallest such proportional gain found with power 0.8 "
+        "(gain None: not even a setting that ends every run at the optimum is)")
     out["versus_baselines"] = _versus_baselines(bt[part], surrogate, out.get("chosen"))
     return out
 
