@@ -93,8 +93,8 @@ def assess(trials: TrialTable, seed: int = 0, quick: bool = False,
         Paired simulated runs per surrogate and setting in the backtest (rounded up to
         whole stand-ins: ``sim_seeds`` starts each).  Default: the plan's (24 quick, 32
         thorough).  More runs buy power for the paired test against the default
-        (``power_final_at_0.1``) at a cost about proportional to the runs; see README
-        *Buying power*.
+        (``power_final_at_0.1``, ``detectable_gain``) at a cost about proportional to
+        the runs, slowly (README *Buying power*).
     model_time_limit : float or None
         Seconds a user's model (``module:Class``) may take over all of its validation
         folds; it runs in a process of its own that is killed after that, and is then

@@ -89,9 +89,10 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
                                                     strata=strata) if use_final else None)
     out["detectable_gain"] = (detectable_gain(final, DEFAULT_LABEL, rng, strata=strata)
                               if use_final else None)
-    level = [v for lab, runs in final.items() if lab != DEFAULT_LABEL
-             for v in runs.values()] + list(final.get(DEFAULT_LABEL, {}).values())
-    out["final_mean_level"] = float(np.mean(level)) if level else None
+    # the level the power model scales (its pooled pairs' mean, detectable_gain's
+    # largest possible gain), so that "no setting can gain 0.1" and a None power agree
+    out["final_mean_level"] = (None if not out["detectable_gain"] else
+                               float(out["detectable_gain"]["largest_possible_gain"]))
     out["power_final_note"] = (
         "the same chance for a setting whose runs end proportionally lower, by 0.1 on "
         "average, in final regret over random order's mean final regret on the same "
