@@ -458,6 +458,9 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
             + ("" if pfinal >= 0.8 else
                f": smaller real gains can go unseen; more runs raise it "
                f"(--backtest-runs, README)"))
+    elif power is None and decision.get("auc_mean_level") is not None:
+        ptxt = (f"; the runs' mean AUC is {decision['auc_mean_level']:.2f}, so no setting "
+                "can gain 0.1 of AUC there")
     else:
         ptxt = "" if power is None else (
             f"; power to find a 0.1 AUC gain {power:.2f}, a large gain" +
@@ -566,6 +569,7 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
         "power_at_0.1": decision.get("power_at_0.1"),
         "power_final_at_0.1": decision.get("power_final_at_0.1"),
         "final_mean_level": decision.get("final_mean_level"),
+        "auc_mean_level": decision.get("auc_mean_level"),
         "detectable_gain": decision.get("detectable_gain"),
         "versus_baselines": decision.get("versus_baselines"),
         "baseline_statement": vs_base,

@@ -78,6 +78,7 @@ def measure(ns, jobs=2):
                    "final_mean_level": dec.get("final_mean_level"),
                    "detectable_gain": dec.get("detectable_gain"),
                    "power_at_0.1": dec["power_at_0.1"],
+                   "auc_mean_level": dec.get("auc_mean_level"),
                    "wall_seconds": time.perf_counter() - t0,
                    "load_average_end": os.getloadavg()[0]}
             res.setdefault(name, []).append(row)

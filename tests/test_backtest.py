@@ -809,6 +809,25 @@ def test_power_in_the_real_outcomes_unit_divides_by_random_orders_final_regret()
         "backtest", dict(sharp, alpha=0.05), "m", {}).split("; on ")[0]
 
 
+def test_no_auc_power_is_claimed_for_a_gain_larger_than_the_runs_auc():
+    # The AUC is bounded below by 0: runs whose mean AUC is 0.05 cannot contain a
+    # setting 0.1 lower on average, so no power is claimed for that gain (the shift model
+    # before said about 1.0 here), and the AUC-unit statement says why.
+    from advisor import decision
+    from advisor.backtest._choice import _decide
+
+    bt = _synthetic_backtest(random_final=1.0, spread=0.5)
+    for r in bt["simulated"]["results"]:
+        for run in r["runs"]:
+            run["auc"] = 0.05 + 0.2 * (run["auc"] - 0.3)
+    out = _decide(bt, "m", seed=0)
+    assert out["power_at_0.1"] is None
+    assert out["auc_mean_level"] == pytest.approx(0.05, abs=0.001)
+    text = decision._acquisition_statement("backtest", dict(out, alpha=0.05, unit="auc"),
+                                           "m", {})
+    assert "the runs' mean AUC is 0.05, so no setting can gain 0.1 of AUC there" in text
+
+
 def test_the_decision_reads_final_regret_over_random_search():
     # A setting that ends lower (final regret) with an identical AUC: the AUC test sees
     # nothing, the decision (in the final unit, random search = 1) picks it; and the

@@ -33,12 +33,13 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
     optimum) the AUC decides and ``unit`` says so.  Power: ``power_final_at_0.1`` in
     the decision's unit (``proportional_power``: a proportional gain, since stop 30; the
     shift model before overstated the realized rate on runs tied at the optimum),
-    ``power_at_0.1`` for 0.1 of AUC (``paired_power``, the observed spread shifted);
+    ``power_at_0.1`` for 0.1 of AUC (the same proportional model since stop 30; the
+    shift of ``paired_power`` before, which claimed power for a gain larger than the
+    runs' mean AUC);
     ``detectable_gain`` (``_decision.detectable_gain``): the smallest proportional gain
     in the decision's unit these runs find with power 0.8.
     """
-    from ._decision import (detectable_gain, paired_decision, paired_power,
-                            proportional_power)
+    from ._decision import detectable_gain, paired_decision, proportional_power
 
     part = None
     for cand in ("simulated", "replay"):
@@ -73,16 +74,19 @@ def _decide(bt: dict, surrogate: str, seed: int) -> dict:
     out["auc_test"] = {k: auc_test[k] for k in ("chosen", "beats_default", "comparisons")}
     rng = np.random.default_rng(task_seed(seed, "power", surrogate))
     n_classes = len(set(strata.values())) if strata else 1
-    base = values.get(DEFAULT_LABEL, {})
-    diffs = [np.array([v[k] - base[k] for k in sorted(set(v) & set(base))])
-             for lab, v in values.items() if lab != DEFAULT_LABEL]
-    out["power_at_0.1"] = paired_power(diffs, max(1, len(diffs)), rng,
-                                       n_classes=n_classes)
-    out["power_note"] = ("chance that a setting truly better than the default by 0.1 of "
-                         "normalized-regret AUC is found significant with this many runs "
-                         "(simulated from the observed paired spread, strictest Holm step"
+    # The AUC is bounded below by 0 too: a shift by 0.1 models a gain no setting can
+    # make when the runs' mean AUC is below 0.1 (the sample logs' stand-ins: 0.085-0.13,
+    # random order's 0.10-0.15), so the AUC's power uses the same proportional model and
+    # is None there (stop 30; the shift said 0.85-1.0 for that impossible gain).
+    out["power_at_0.1"] = proportional_power(values, DEFAULT_LABEL, rng, strata=strata)
+    auc_level = [x for v in values.values() for x in v.values() if np.isfinite(x)]
+    out["auc_mean_level"] = float(np.mean(auc_level)) if auc_level else None
+    out["power_note"] = ("chance that a setting whose runs' normalized-regret AUC is "
+                         "proportionally lower, by 0.1 on average, is found significant "
+                         "with this many runs (resampled pairs, strictest Holm step"
                          + (", found within every stand-in class" if n_classes > 1 else "")
-                         + ")")
+                         + "); None when the runs' mean AUC (auc_mean_level) is 0.1 or "
+                         "less, where no setting can gain 0.1 of AUC")
     # in the final unit a shift is no model of a gain (zero-inflated: runs tied at the
     # optimum), see _decision.proportional_power
     out["power_final_at_0.1"] = (proportional_power(final, DEFAULT_LABEL, rng,
