@@ -456,7 +456,7 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
             f"{pfinal:.2f}" + ("" if power is None else
                                f" (for a 0.1 AUC gain {power:.2f})")
             + ("" if pfinal >= 0.8 else
-               f": smaller real gains can go unseen; more runs raise it "
+               f": smaller real gains can go unseen; more runs raise it, slowly "
                f"(--backtest-runs, README)"))
     elif power is None and decision.get("auc_mean_level") is not None:
         ptxt = (f"; the runs' mean AUC is {decision['auc_mean_level']:.2f}, so no setting "
