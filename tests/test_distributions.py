@@ -42,3 +42,24 @@ def test_yeo_johnson_inverse_and_jacobian():
     np.testing.assert_allclose(w.log_derivative(y), np.log(fd), atol=1e-6)
     # forward agrees with scipy's Yeo-Johnson on y/scale
     np.testing.assert_allclose(w.forward(y), stats.yeojohnson(y / 2.0, lmbda=0.4))
+
+
+def test_wide_predictive_distributions_have_finite_moments():
+    # A predictive sd of 300 in T's units: the inverse of lambda = 0 (exp on the positive
+    # side), lambda = 2 (exp on the negative side) and the log overflowed, and the
+    # moments came out inf / NaN (a warped-GP backtest run raised on it, stop 29).
+    for warp in (OutputWarp("yeo-johnson", 0.0, 1.0), OutputWarp("yeo-johnson", 2.0, 1.0),
+                 OutputWarp("log")):
+        dist = WarpedNormal(np.array([0.0, 1.0]), np.array([300.0, 1.0]), warp)
+        mean, sd = dist.moments()
+        assert np.all(np.isfinite(mean)) and np.all(np.isfinite(sd)), warp.kind
+        assert np.all(np.isfinite(dist.crps(np.array([0.5, 0.5]))))
+        # the narrow point is untouched by the bound: its moments against quadrature of
+        # the untruncated inverse (scipy.integrate.quad over the normal density)
+        ref = integrate.quad(lambda x: float(warp.inverse(np.array([1.0 + x]))[0])
+                             * stats.norm.pdf(x), -12, 12)[0]
+        np.testing.assert_allclose(mean[1], ref, rtol=2e-2)
+    # within the bound the inverse is the exact inverse of scipy's forward transform
+    w = OutputWarp("yeo-johnson", 0.0, 1.0)
+    y = np.array([-1e5, -3.0, 0.0, 3.0, 1e5])
+    np.testing.assert_allclose(w.inverse(stats.yeojohnson(y, lmbda=0.0)), y, rtol=1e-9)
