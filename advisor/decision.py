@@ -411,6 +411,14 @@ REAL_DETECTION = {"picked": 0, "logs": 20, "upper_95": 0.139,
 #: the file.
 PERFECT_STANDINS = {"runs": 24, "trials_12": (0.01, 0.24), "trials_30": (0.50, 0.58),
                     "benchmark": "benchmarks/nondefault_ceiling.py"}
+#: What more runs buy (``benchmarks/final_unit_power.py --measure 1536``,
+#: ``results/final_unit_power.json`` section ``measured``, stop 31, 2026-12-04): the
+#: decision's own power for a gain of 0.1 in final regret over random search's with
+#: 1,536 paired runs per setting, lowest and highest over the three sample logs
+#: (campaign_gp, quick plan and grid, seed 0; about six minutes of backtest per model
+#: on 2 cores).  ``tests/test_decision.py`` checks it against the file.
+MORE_RUNS = {"runs": 1536, "power": (0.34, 0.98),
+             "benchmark": "benchmarks/final_unit_power.py --measure 1536"}
 
 
 def _rate_range(pair) -> str:
@@ -456,8 +464,10 @@ def _acquisition_statement(source: str, decision: dict, leader: str, backtest_ou
             f"{pfinal:.2f}" + ("" if power is None else
                                f" (for a 0.1 AUC gain {power:.2f})")
             + ("" if pfinal >= 0.8 else
-               f": smaller real gains can go unseen; more runs raise it, slowly "
-               f"(--backtest-runs, README)"))
+               f": smaller real gains can go unseen; more runs raise it, slowly (on the "
+               f"sample logs {MORE_RUNS['runs']:,} runs per setting found it with power "
+               f"{MORE_RUNS['power'][0]:.2f}-{MORE_RUNS['power'][1]:.2f}; "
+               f"--backtest-runs, README)"))
     elif power is None and decision.get("auc_mean_level") is not None:
         ptxt = (f"; the runs' mean AUC is {decision['auc_mean_level']:.2f}, so no setting "
                 "can gain 0.1 of AUC there")
@@ -575,7 +585,9 @@ def recommendation(ranking, backtest_out, *, test=None, pair=None, disagreement=
         "baseline_statement": vs_base,
         "real_detection": {**REAL_DETECTION, "perfect_standins": {
             k: (list(v) if isinstance(v, tuple) else v)
-            for k, v in PERFECT_STANDINS.items()}}}
+            for k, v in PERFECT_STANDINS.items()}},
+        "more_runs": {k: (list(v) if isinstance(v, tuple) else v)
+                      for k, v in MORE_RUNS.items()}}
     return {"surrogate": leader, "acquisition": acq, "acquisition_source": source,
             "beats_random_search": beats_random_search(
                 decision.get("versus_baselines") if source == "backtest" else None),

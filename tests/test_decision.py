@@ -333,3 +333,27 @@ def test_the_pair_test_reads_the_setting_decisions_unit():
     del bt["simulated"]["random"]
     auc = decision.optimization_test(bt, "gp", ["dngo"])
     assert auc["unit"] == "auc" and auc["better"] is None
+
+
+def test_what_more_runs_buy_is_the_measured_record():
+    # The figure the statement prints for "more runs raise it" is the record of
+    # benchmarks/final_unit_power.py --measure (the product's own decision with that
+    # many paired runs on each sample log): lowest and highest power for 0.1 over logs.
+    import json
+    from pathlib import Path
+
+    res = json.loads((Path(__file__).resolve().parents[1] / "benchmarks" / "results" /
+                      "final_unit_power.json").read_text())
+    mr = decision.MORE_RUNS
+    powers = [row["power_final_at_0.1"] for rows in res["measured"]["logs"].values()
+              for row in rows if row["runs_asked"] == mr["runs"]]
+    assert len(powers) == 3 and None not in powers
+    assert mr["power"] == pytest.approx((min(powers), max(powers)), abs=0.005)
+    dec = {"alpha": 0.05, "experiment": "simulated", "unit": "final_over_random",
+           "test": "one-sided Wilcoxon signed-rank, Holm", "beats_default": False,
+           "power_final_at_0.1": 0.01, "final_mean_level": 0.4,
+           "comparisons": [{"label": "UCB beta=4", "runs": 24, "p_value": 0.3,
+                            "p_holm": 0.6}]}
+    text = decision._acquisition_statement("backtest", dec, "gp", {})
+    assert (f"{mr['runs']:,} runs per setting found it with power "
+            f"{mr['power'][0]:.2f}-{mr['power'][1]:.2f}") in text

@@ -94,8 +94,8 @@ measured (``power_at_0.1`` in each decision; README "What the backtest runs"), b
 a difference of 0.1 in final regret over random search's, the unit the decision reads
 since stop 29 (``power_final_at_0.1``, by a proportional-gain model since stop 30: 0.00
 on the sample logs at 24 runs, 0.03-0.12 at 384, 0.34-0.98 at 1,536; ``detectable_gain``
-says what the runs can see); more runs (``sim_functions``, set by ``assess(backtest_runs=)``) buy little of
-it (README "Buying power").  The class
+says what the runs can see); more runs (``sim_functions``, set by ``assess(backtest_runs=)``) buy it
+slowly, about 1,500-3,000 per setting for 0.1 (README "Buying power").  The class
 defaults (``plan=BacktestPlan()``) keep exhaustive values: full fits at every step.
 
 The simulated budget defaults to the median campaign size of the log (the size of the
