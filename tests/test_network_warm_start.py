@@ -56,7 +56,7 @@ def _nll(model, Xt, yt):
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("name,seeds", [("ensemble", 4), ("dngo", 4), ("bnn", 3)])
+@pytest.mark.parametrize("name,seeds", [("ensemble", 16), ("dngo", 4), ("bnn", 3)])
 def test_warm_start_learns_the_new_rows_about_as_well_as_a_full_refit(name, seeds):
     # The backtest's quick runs re-fit at 4-10 rows (below the networks' 15-row
     # threshold for a held-out slice), where a full fit is hundreds of Adam (SGHMC)
@@ -66,7 +66,12 @@ def test_warm_start_learns_the_new_rows_about_as_well_as_a_full_refit(name, seed
     # between full fits) and is within 1 nat of a full refit's (our margin).  Measured
     # medians (stale / warm / full, 4 seeds): ensemble 27.1 / 10.1 / 9.4 (per seed the
     # warm start was the worse of the two in 2 of 4: a median, not every seed), DNGO
-    # 140 / 7.0 / 186, SGHMC network 5.77 / 5.51 / 5.31.  scikit-learn's GP on the
+    # 140 / 7.0 / 186, SGHMC network 5.77 / 5.51 / 5.31.  The ensemble's per-seed NLLs
+    # spread widely (4.7-47), so a median of 4 moved with the machine: on an Intel Xeon
+    # host (stop 31; the figures above are from an AMD EPYC one, same package versions,
+    # torch's CPU kernels differ) its 4 seeds gave warm 14.2 against full 11.7, and 16
+    # seeds 7.5 against 10.4 (12 seeds: 9.6 / 11.7), hence 16 seeds for it (about 12 s).
+    # scikit-learn's GP on the
     # same rows is an external yardstick: a calibrated model does better than both
     # networks here (the check fails if the problem or its NLL were broken).  About 5
     # (ensemble, DNGO) and 10 (BNN) CPU s.
