@@ -25,6 +25,16 @@ log, and whether the construction meets the criterion stated before the run: a t
 winner picked on >= 30% of the winner-case logs AND false picks on <= 10% of the
 control logs.  The loop is seed-major (every construction and case for log seed 0, then
 1, ...) so that a run stopped early leaves a balanced table.
+
+    python benchmarks/nondefault_power.py run --constructions gp+forest \
+        --cases levy3:0.05,branin:0.2 --log-seeds 0,1 --functions 512 --starts 3 \
+        --jobs 2 --section power_1536
+
+(stop 31) the product's own stand-ins (``gp+forest``) with 1,536 runs per setting, the
+run count at which the sample logs' power for 0.1 is 0.34-0.98: does buying runs find
+the true winners?  Each row also keeps the product's decision, its
+``power_final_at_0.1`` and ``detectable_gain`` (``product``); section ``power_1536``,
+summary ``power_1536_summary``; about 4.5 minutes a log with 2 workers.
 """
 
 from __future__ import annotations
@@ -62,9 +72,11 @@ def _truth_winners(res, key) -> set:
     return out
 
 
-def run(constructions, cases, log_seeds, functions, starts, budget=30, progress=print):
+def run(constructions, cases, log_seeds, functions, starts, budget=30, progress=print,
+        jobs=1, section=SECTION):
     from advisor.assessment._stages import _quick_model
     from advisor.backtest import plan_for, run_backtest
+    from advisor.execution import Executor
 
     settings = default_settings(quick=True)
     for s in log_seeds:
@@ -77,16 +89,21 @@ def run(constructions, cases, log_seeds, functions, starts, budget=30, progress=
                 t0, w0 = time.process_time(), time.time()
                 with threadpool_limits(1):
                     bt = run_backtest(trials, ["gp"], settings, seed=seed, quick=True,
-                                      budget=budget, make=_quick_model, plan=plan)
+                                      budget=budget, make=_quick_model, plan=plan,
+                                      executor=Executor(jobs=jobs))
                 row = {m: nw._unit_decision(bt, "gp", m) for m in ("auc", "final")}
+                dec = bt["per_surrogate"]["gp"]["decision"]
+                # the product's own decision and what it says its runs can see
+                row["product"] = {k: dec.get(k) for k in ("chosen", "power_final_at_0.1",
+                                                           "detectable_gain")}
                 row["runs_per_setting"] = bt["simulated"].get("runs_per_setting")
                 row["classes"] = bt["simulated"]["standins"]["classes"]
                 row["cpu_seconds"] = time.process_time() - t0
                 row["wall_seconds"] = time.time() - w0
                 res = json.loads(nw.OUT.read_text()) if nw.OUT.exists() else {}
-                res.setdefault(SECTION, {}).setdefault(cons, {}).setdefault(
+                res.setdefault(section, {}).setdefault(cons, {}).setdefault(
                     key, {})[str(seed)] = row
-                res[SECTION]["_config"] = {"functions": functions, "starts": starts,
+                res[section]["_config"] = {"functions": functions, "starts": starts,
                                            "budget": budget, "grid": "quick"}
                 nw.OUT.write_text(json.dumps(res, indent=1, default=float))
                 progress(f"{cons} {key} seed {seed}: auc -> {row['auc']['chosen']}, final "
@@ -101,11 +118,11 @@ def _cp(k, n) -> list:
     return [float(ci.low), float(ci.high)]
 
 
-def summarize(res) -> dict:
+def summarize(res, section=SECTION) -> dict:
     out = {}
     default = nw.DEFAULT.label
     quick = {s.label for s in default_settings(quick=True)}
-    for cons, cases in res.get(SECTION, {}).items():
+    for cons, cases in res.get(section, {}).items():
         if cons.startswith("_"):
             continue
         seeds = [set(rows) for rows in cases.values()]
@@ -168,12 +185,16 @@ def main(argv=None):
     ap.add_argument("--log-seeds", default="0,1,2,3,4,5,6,7,8,9")
     ap.add_argument("--functions", type=int, default=32)
     ap.add_argument("--starts", type=int, default=3)
+    ap.add_argument("--jobs", type=int, default=1, help="worker processes per backtest")
+    ap.add_argument("--section", default=SECTION,
+                    help="results section (its summary: SECTION_summary)")
     args = ap.parse_args(argv)
     if args.part == "run":
         run(args.constructions.split(","), nw._cases(args.cases),
-            [int(s) for s in args.log_seeds.split(",")], args.functions, args.starts)
+            [int(s) for s in args.log_seeds.split(",")], args.functions, args.starts,
+            jobs=args.jobs, section=args.section)
     res = json.loads(nw.OUT.read_text())
-    summ = summarize(res)
+    summ = summarize(res, args.section)
     for cons, row in summ.items():
         if cons == "criterion":
             continue
@@ -185,7 +206,7 @@ def main(argv=None):
                   f"{u['wrong_picks_on_winner_cases']}, meets {u['meets_criterion']}")
         print(f"   {row['logs_per_case']} logs/case, {row['runs_per_setting']} runs, "
               f"{row['cpu_seconds_per_log']:.0f} s cpu/log; {row['winner_final_differences']}")
-    res["power_summary"] = summ
+    res[f"{args.section}_summary"] = summ
     nw.OUT.write_text(json.dumps(res, indent=1, default=float))
 
 

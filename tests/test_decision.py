@@ -357,3 +357,29 @@ def test_what_more_runs_buy_is_the_measured_record():
     text = decision._acquisition_statement("backtest", dec, "gp", {})
     assert (f"{mr['runs']:,} runs per setting found it with power "
             f"{mr['power'][0]:.2f}-{mr['power'][1]:.2f}") in text
+    # ... and its real outcome: the record of benchmarks/nondefault_power.py's
+    # power_1536 section (the product's stand-ins and decision with as many runs on the
+    # benchmark's past logs whose next campaigns have a true winner in the quick grid,
+    # the winners from its real campaigns, sections truth / truth_40)
+    real = json.loads((Path(__file__).resolve().parents[1] / "benchmarks" / "results" /
+                       "nondefault_wins.json").read_text())
+    quick = {"EI xi=0.01", "PI xi=0.01", "UCB beta=4", "Thompson"}
+    logs = picks = 0
+    powers = []
+    for key, rows in real["power_1536"]["gp+forest"].items():
+        winners = set()
+        for sec in ("truth", "truth_40"):
+            winners |= set(real.get(sec, {}).get(key, {}).get("true_winners", []))
+        winners &= quick
+        if not winners:
+            continue
+        for row in rows.values():
+            logs += 1
+            picks += row["product"]["chosen"] in winners
+            powers.append(row["product"]["power_final_at_0.1"])
+            assert row["runs_per_setting"] == mr["runs"]
+    assert (mr["real_logs"], mr["real_picks"]) == (logs, picks)
+    assert mr["real_power"] == pytest.approx((min(powers), max(powers)), abs=0.005)
+    assert (f"on {mr['real_logs']} benchmark logs with a true winner as many runs, at "
+            f"power {mr['real_power'][0]:.2f}-{mr['real_power'][1]:.2f}, picked it "
+            f"{mr['real_picks']} times") in text
