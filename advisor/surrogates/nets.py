@@ -19,6 +19,7 @@ nothing reads or changes torch's global random state.
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 
@@ -263,8 +264,15 @@ def epoch_batches(n: int, batch_size: int, generator: torch.Generator, members: 
     """
     perms = torch.stack([torch.randperm(n, generator=generator) for _ in range(members)])
     n_batches = max(1, n // batch_size)
+    if n_batches == 1:  # one batch of every row (the samplers' loops call this per step)
+        return [perms]
+    return [perms[:, a:b] for a, b in _batch_edges(n, n_batches)]
+
+
+@functools.lru_cache(maxsize=256)
+def _batch_edges(n: int, n_batches: int) -> tuple:
     edges = np.linspace(0, n, n_batches + 1).round().astype(int)
-    return [perms[:, a:b] for a, b in zip(edges[:-1], edges[1:])]
+    return tuple((int(a), int(b)) for a, b in zip(edges[:-1], edges[1:]))
 
 
 class LatentSamplerMixin:
