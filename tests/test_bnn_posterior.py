@@ -86,3 +86,47 @@ def test_the_reported_convergence_counts_every_fold():
     assert _merge_info(res)["warning"] == "R-hat 2.8 > 1.1"
     del res[1]["info"]["warning"]
     assert "2 of 3 folds" in _merge_info(res)["warning"]
+
+
+def test_the_samplers_own_loop_takes_the_same_steps_as_the_optimizer_interface():
+    """The fit loop calls ``AdaptiveSGHMC.update()`` (no optimizer hooks) instead of
+    ``step()``: the same arithmetic, so from the same state, gradients and noise seed
+    the two leave bit-identical parameters, in adaptation and after it."""
+    import torch
+
+    from advisor.surrogates.bnn import AdaptiveSGHMC
+
+    def run(use_update):
+        gen = torch.Generator().manual_seed(5)
+        p = torch.nn.Parameter(torch.linspace(-1.0, 1.0, 7, dtype=torch.float64))
+        opt = AdaptiveSGHMC([p], lr=1e-2, mdecay=0.05, generator=gen)
+        for k in range(40):
+            opt.adapt = k < 20
+            p.grad = None
+            ((p - 0.3) ** 2 * torch.arange(1.0, 8.0, dtype=torch.float64)).sum().backward()
+            if use_update:
+                with torch.no_grad():
+                    opt.update()
+            else:
+                opt.step()
+        return p.detach().clone()
+
+    a, b = run(False), run(True)
+    assert torch.equal(a, b)
+    assert not torch.equal(a, torch.linspace(-1.0, 1.0, 7, dtype=torch.float64))
+
+
+def test_one_batch_epochs_are_the_whole_shuffle():
+    """``epoch_batches`` with one batch returns the permutation itself (the generator
+    consumed as before); with several, contiguous slices covering every row once."""
+    import torch
+
+    from advisor.surrogates.nets import epoch_batches
+
+    one = epoch_batches(9, 16, torch.Generator().manual_seed(1))
+    ref = torch.randperm(9, generator=torch.Generator().manual_seed(1))
+    assert len(one) == 1 and torch.equal(one[0][0], ref)
+    many = epoch_batches(130, 64, torch.Generator().manual_seed(1), members=2)
+    assert [b.shape[1] for b in many] == [65, 65]
+    assert all(sorted(torch.cat([b[m] for b in many]).tolist()) == list(range(130))
+               for m in range(2))
